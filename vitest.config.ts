@@ -1,0 +1,35 @@
+import { defineConfig } from "vitest/config";
+
+// Test tiers by file suffix: unit (pure, milliseconds), int (a real broker), e2e (the closed loop).
+export default defineConfig({
+  test: {
+    projects: [
+      {
+        test: {
+          name: "unit",
+          include: ["services/**/*.unit.test.ts", "test/**/*.unit.test.ts", "scripts/**/*.unit.test.ts"],
+          testTimeout: 30_000,
+        },
+      },
+      {
+        test: {
+          name: "int",
+          include: ["services/**/*.int.test.ts", "test/**/*.int.test.ts"],
+          testTimeout: 60_000,
+          hookTimeout: 60_000,
+          // Integration tests share two cores and real brokers; one file at a time keeps timing honest.
+          fileParallelism: false,
+        },
+      },
+      {
+        test: {
+          name: "e2e",
+          include: ["services/**/*.e2e.test.ts", "test/**/*.e2e.test.ts"],
+          testTimeout: 600_000,
+          hookTimeout: 120_000,
+          fileParallelism: false,
+        },
+      },
+    ],
+  },
+});
