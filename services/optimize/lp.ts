@@ -1,0 +1,481 @@
+/**
+ * LP and MILP on one problem description, solved by HiGHS (`highs`, WebAssembly) or by
+ * `javascript-lp-solver` (pure JavaScript, for tiny problems).
+ *
+ * Duals are reported as shadow prices: the dual of a constraint is ∂obj* / ∂b, the change of the
+ * optimal objective (in the problem's own sense) per unit raise of the constraint's binding limit
+ * (lb or ub, whichever is active); zero for a constraint not at a limit. For a MILP the duals are
+ * those of the LP with the integer variables fixed at their optimal values.
+ *
+ * Library traps (LIBRARY-NOTES.md): HiGHS's loader is asynchronous, a fresh solve costs about 3 ms
+ * whatever the size, and a kept model re-solved after a cost change is 13–46× faster, so
+ * `createHighsLp` keeps a persistent model (which must be disposed: Wasm memory is not garbage
+ * collected). javascript-lp-solver makes every variable ≥ 0 unless told otherwise, wants bounds as
+ * constraints, rounds values to 1e-8, leaves zero-valued variables out of its answer and reports no
+ * duals: the duals are recovered here from the primal solution (see `activeSetDuals`).
+ */
+import highsImport, { type Highs, type Model as HighsModel } from "highs";
+import jsLpImport from "javascript-lp-solver";
+import { Matrix, pseudoInverse } from "ml-matrix";
+import type { OptimizeErrorCode } from "./errors.js";
+
+/** A decision variable. */
+export interface LpVariable {
+  name: string;
+  /** Lower bound; default 0. Use -Infinity for a free variable. */
+  lb?: number;
+  /** Upper bound; default +Infinity. */
+  ub?: number;
+  /** Objective coefficient. */
+  cost: number;
+  /** Restrict to integer values; default false. */
+  integer?: boolean;
+}
+
+/** A linear constraint lb ≤ Σ coeffs[var]·var ≤ ub. */
+export interface LpConstraint {
+  name: string;
+  /** Sparse coefficients by variable name. */
+  coeffs: Readonly<Record<string, number>>;
+  /** Lower limit; default -Infinity. */
+  lb?: number;
+  /** Upper limit; default +Infinity. */
+  ub?: number;
+}
+
+/** An LP or MILP. */
+export interface LpProblem {
+  sense: "min" | "max";
+  variables: readonly LpVariable[];
+  constraints: readonly LpConstraint[];
+}
+
+/** Outcome of an LP/MILP solve. */
+export type LpStatus = "optimal" | "infeasible" | "unbounded" | "limit" | "error";
+
+/** Result of an LP/MILP solve. */
+export interface LpResult {
+  status: LpStatus;
+  /** Registry code when the status is not "optimal". */
+  code?: OptimizeErrorCode;
+  message: string;
+  /** Optimal objective value (NaN unless optimal). */
+  objective: number;
+  /** Primal values by variable name (every variable present). */
+  values: Record<string, number>;
+  /** Shadow price ∂obj* / ∂(binding limit) by constraint name; 0 where no limit binds. */
+  duals: Record<string, number>;
+  /** Reduced costs ∂obj* / ∂(binding bound) by variable name; 0 for a variable strictly inside its bounds. */
+  reducedCosts: Record<string, number>;
+  /** Which solver produced it. */
+  solver: "highs" | "javascript-lp-solver";
+}
+
+const isMilp = (p: LpProblem) => p.variables.some((v) => v.integer === true);
+const lbOf = (v: LpVariable) => v.lb ?? 0;
+const ubOf = (v: LpVariable) => v.ub ?? Number.POSITIVE_INFINITY;
+
+function emptyResult(
+  solver: LpResult["solver"],
+  status: LpStatus,
+  code: OptimizeErrorCode,
+  message: string,
+): LpResult {
+  return { status, code, message, objective: Number.NaN, values: {}, duals: {}, reducedCosts: {}, solver };
+}
+
+/** Checks names and bounds; returns a message or undefined. */
+function validate(p: LpProblem): string | undefined {
+  const names = new Set<string>();
+  for (const v of p.variables) {
+    if (names.has(v.name)) return `variable "${v.name}" is declared twice`;
+    names.add(v.name);
+    if (!Number.isFinite(v.cost)) return `cost of "${v.name}" is not finite`;
+    if (Number.isNaN(lbOf(v)) || Number.isNaN(ubOf(v)) || lbOf(v) > ubOf(v))
+      return `bounds of "${v.name}" are inconsistent: [${lbOf(v)}, ${ubOf(v)}]`;
+  }
+  const rows = new Set<string>();
+  for (const c of p.constraints) {
+    if (rows.has(c.name)) return `constraint "${c.name}" is declared twice`;
+    rows.add(c.name);
+    for (const [name, a] of Object.entries(c.coeffs)) {
+      if (!names.has(name)) return `constraint "${c.name}" uses undeclared variable "${name}"`;
+      if (!Number.isFinite(a)) return `constraint "${c.name}" has a non-finite coefficient for "${name}"`;
+    }
+    const lo = c.lb ?? Number.NEGATIVE_INFINITY;
+    const hi = c.ub ?? Number.POSITIVE_INFINITY;
+    if (Number.isNaN(lo) || Number.isNaN(hi) || lo > hi)
+      return `limits of "${c.name}" are inconsistent: [${lo}, ${hi}]`;
+  }
+  return undefined;
+}
+
+// Both packages declare CommonJS types but load as ES modules here; take `.default` when the
+// runtime hands over a namespace, the value itself otherwise.
+const unwrapDefault = <T>(m: unknown): T => ((m as { default?: T }).default ?? m) as T;
+const highsLoader = unwrapDefault<(options?: object) => Promise<Highs>>(highsImport);
+const jsLpSolver = unwrapDefault<{ Solve(model: object): unknown }>(jsLpImport);
+
+// ---------------------------------------------------------------------------------------------
+// HiGHS
+
+let highsPromise: Promise<Highs> | undefined;
+
+/**
+ * Loads the HiGHS WebAssembly module once per process and caches it (the loader is asynchronous;
+ * every solve after it is synchronous).
+ */
+export function loadHighs(): Promise<Highs> {
+  highsPromise ??= highsLoader();
+  return highsPromise;
+}
+
+/** A kept HiGHS model for repeated solves: change costs or limits, re-solve warm, dispose at the end. */
+export interface HighsLp {
+  /** Solves (warm after the first call: HiGHS keeps its basis) and reports in the problem's names. */
+  solve(): LpResult;
+  /** Changes objective coefficients by variable name. */
+  setCosts(costs: Readonly<Record<string, number>>): void;
+  /** Changes a variable's bounds. */
+  setVariableBounds(name: string, lb: number, ub: number): void;
+  /** Changes a constraint's limits. */
+  setConstraintLimits(name: string, lb: number, ub: number): void;
+  /** Releases the WebAssembly memory; the object is unusable afterwards. */
+  dispose(): void;
+}
+
+function toModelData(highs: Highs, p: LpProblem) {
+  const col = new Map(p.variables.map((v, j) => [v.name, j]));
+  const starts = [0];
+  const indices: number[] = [];
+  const values: number[] = [];
+  for (const c of p.constraints) {
+    const entries = Object.entries(c.coeffs)
+      .map(([name, a]) => [col.get(name)!, a] as const)
+      .filter(([, a]) => a !== 0)
+      .sort((a, b) => a[0] - b[0]);
+    for (const [j, a] of entries) {
+      indices.push(j);
+      values.push(a);
+    }
+    starts.push(indices.length);
+  }
+  const inf = highs.infinity;
+  const clampInf = (v: number) =>
+    v === Number.POSITIVE_INFINITY ? inf : v === Number.NEGATIVE_INFINITY ? -inf : v;
+  return {
+    numCols: p.variables.length,
+    numRows: p.constraints.length,
+    sense:
+      p.sense === "max" ? highs.constants.objectiveSense.maximize : highs.constants.objectiveSense.minimize,
+    colCost: p.variables.map((v) => v.cost),
+    colLower: p.variables.map((v) => clampInf(lbOf(v))),
+    colUpper: p.variables.map((v) => clampInf(ubOf(v))),
+    rowLower: p.constraints.map((c) => clampInf(c.lb ?? Number.NEGATIVE_INFINITY)),
+    rowUpper: p.constraints.map((c) => clampInf(c.ub ?? Number.POSITIVE_INFINITY)),
+    matrix: {
+      format: "csr" as const,
+      numRows: p.constraints.length,
+      numCols: p.variables.length,
+      starts: Int32Array.from(starts),
+      indices: Int32Array.from(indices),
+      values: Float64Array.from(values),
+    },
+    ...(isMilp(p)
+      ? {
+          integrality: p.variables.map((v) =>
+            v.integer ? highs.constants.variableType.integer : highs.constants.variableType.continuous,
+          ),
+        }
+      : {}),
+  };
+}
+
+function readHighs(highs: Highs, model: HighsModel, p: LpProblem, costs: Float64Array): LpResult {
+  const ms = model.getModelStatus();
+  const st = highs.constants.modelStatus;
+  if (ms === st.infeasible)
+    return emptyResult("highs", "infeasible", "OPTIMIZE_INFEASIBLE", "HiGHS proved the problem infeasible");
+  if (ms === st.unbounded || ms === st.unboundedOrInfeasible)
+    return emptyResult("highs", "unbounded", "OPTIMIZE_UNBOUNDED", `HiGHS model status ${ms} (unbounded)`);
+  if (ms === st.timeLimit || ms === st.iterationLimit)
+    return emptyResult(
+      "highs",
+      "limit",
+      "OPTIMIZE_ITERATION_LIMIT",
+      `HiGHS stopped at a limit (model status ${ms})`,
+    );
+  if (ms !== st.optimal && ms !== st.empty)
+    return emptyResult("highs", "error", "OPTIMIZE_SOLVER_FAILED", `HiGHS model status ${ms}`);
+  const sol = model.getSolution();
+  const values: Record<string, number> = {};
+  p.variables.forEach((v, j) => {
+    values[v.name] = sol.colValue[j] ?? 0;
+  });
+  let objective = 0;
+  for (let j = 0; j < p.variables.length; j++) objective += costs[j]! * (sol.colValue[j] ?? 0);
+  const duals: Record<string, number> = {};
+  const reducedCosts: Record<string, number> = {};
+  if (!isMilp(p)) {
+    // HiGHS reports row duals y with c − Aᵀy = reduced cost, which is ∂obj* / ∂(row limit) in both senses.
+    p.constraints.forEach((c, i) => {
+      duals[c.name] = sol.rowDual[i] ?? 0;
+    });
+    p.variables.forEach((v, j) => {
+      reducedCosts[v.name] = sol.colDual[j] ?? 0;
+    });
+  }
+  return { status: "optimal", message: "optimal", objective, values, duals, reducedCosts, solver: "highs" };
+}
+
+/**
+ * Builds a persistent HiGHS model of `p` (CSR arrays, no LP text) for warm re-solves. A malformed
+ * problem gives a model whose `solve()` returns status "error"; HiGHS's own input validation may
+ * throw here (use `solveLpHighs` for a call that never throws). Call `dispose()` when done.
+ */
+export function createHighsLp(highs: Highs, p: LpProblem): HighsLp {
+  const problemError = validate(p);
+  const costs = Float64Array.from(p.variables.map((v) => v.cost));
+  const col = new Map(p.variables.map((v, j) => [v.name, j]));
+  const row = new Map(p.constraints.map((c, i) => [c.name, i]));
+  let model: HighsModel | undefined;
+  if (problemError === undefined) {
+    model = highs.createModel(toModelData(highs, p));
+    model.options.set({ output_flag: false });
+  }
+  const inf = highs.infinity;
+  const clampInf = (v: number) =>
+    v === Number.POSITIVE_INFINITY ? inf : v === Number.NEGATIVE_INFINITY ? -inf : v;
+  return {
+    solve(): LpResult {
+      if (!model)
+        return emptyResult("highs", "error", "OPTIMIZE_INVALID_PROBLEM", problemError ?? "model disposed");
+      try {
+        model.run();
+        const r = readHighs(highs, model, p, costs);
+        if (r.status === "optimal" && isMilp(p)) {
+          // Duals of a MILP: those of the LP with the integers fixed at their optimal values.
+          const fixed: LpProblem = {
+            ...p,
+            variables: p.variables.map((v, j) =>
+              v.integer
+                ? { ...v, integer: false, lb: r.values[v.name]!, ub: r.values[v.name]!, cost: costs[j]! }
+                : { ...v, cost: costs[j]! },
+            ),
+          };
+          const lp = createHighsLp(highs, fixed);
+          try {
+            const f = lp.solve();
+            r.duals = f.duals;
+            r.reducedCosts = f.reducedCosts;
+          } finally {
+            lp.dispose();
+          }
+        }
+        return r;
+      } catch (err) {
+        return emptyResult("highs", "error", "OPTIMIZE_SOLVER_FAILED", `HiGHS threw: ${String(err)}`);
+      }
+    },
+    setCosts(newCosts) {
+      if (!model) return;
+      const idx: number[] = [];
+      const vals: number[] = [];
+      for (const [name, c] of Object.entries(newCosts)) {
+        const j = col.get(name);
+        if (j === undefined) continue;
+        idx.push(j);
+        vals.push(c);
+        costs[j] = c;
+      }
+      const order = idx.map((_, k) => k).sort((a, b) => idx[a]! - idx[b]!);
+      if (order.length > 0)
+        model.changeColsCost(
+          { kind: "set", indices: order.map((k) => idx[k]!) },
+          order.map((k) => vals[k]!),
+        );
+    },
+    setVariableBounds(name, lb, ub) {
+      const j = col.get(name);
+      if (model && j !== undefined) model.changeColBounds(j, clampInf(lb), clampInf(ub));
+    },
+    setConstraintLimits(name, lb, ub) {
+      const i = row.get(name);
+      if (model && i !== undefined) model.changeRowBounds(i, clampInf(lb), clampInf(ub));
+    },
+    dispose() {
+      model?.dispose();
+      model = undefined;
+    },
+  };
+}
+
+/** Solves `p` once with HiGHS (builds, solves and disposes a model). Never throws. */
+export function solveLpHighs(highs: Highs, p: LpProblem): LpResult {
+  const problemError = validate(p);
+  if (problemError) return emptyResult("highs", "error", "OPTIMIZE_INVALID_PROBLEM", problemError);
+  let lp: HighsLp | undefined;
+  try {
+    lp = createHighsLp(highs, p);
+    return lp.solve();
+  } catch (err) {
+    return emptyResult("highs", "error", "OPTIMIZE_SOLVER_FAILED", `HiGHS threw: ${String(err)}`);
+  } finally {
+    lp?.dispose();
+  }
+}
+
+// ---------------------------------------------------------------------------------------------
+// javascript-lp-solver
+
+/**
+ * Shadow prices recovered from a primal solution: with B the variables strictly inside their bounds
+ * and R the constraints at a limit, stationarity c_B = A_RBᵀ·y_R gives y (least squares, by
+ * pseudo-inverse, when degenerate); y_i = ∂obj* / ∂b_i in both senses. Exact at a non-degenerate
+ * vertex. `fixed` lists variables to treat as non-basic (the integers of a MILP).
+ */
+export function activeSetDuals(
+  p: LpProblem,
+  values: Readonly<Record<string, number>>,
+  options: { tolerance?: number; fixed?: ReadonlySet<string> } = {},
+): { duals: Record<string, number>; reducedCosts: Record<string, number> } {
+  const tol = options.tolerance ?? 1e-7;
+  const activity = (c: LpConstraint) =>
+    Object.entries(c.coeffs).reduce((s, [v, a]) => s + a * (values[v] ?? 0), 0);
+  const binding = p.constraints.filter((c) => {
+    const ax = activity(c);
+    const scale = 1 + Math.abs(ax);
+    return (
+      (c.lb !== undefined && Math.abs(ax - c.lb) <= tol * scale) ||
+      (c.ub !== undefined && Math.abs(ax - c.ub) <= tol * scale)
+    );
+  });
+  const basic = p.variables.filter((v) => {
+    if (options.fixed?.has(v.name)) return false;
+    const x = values[v.name] ?? 0;
+    return x > lbOf(v) + tol * (1 + Math.abs(x)) && x < ubOf(v) - tol * (1 + Math.abs(x));
+  });
+  const duals: Record<string, number> = {};
+  for (const c of p.constraints) duals[c.name] = 0;
+  if (binding.length > 0 && basic.length > 0) {
+    const a = new Matrix(basic.length, binding.length);
+    basic.forEach((v, j) => {
+      binding.forEach((c, i) => {
+        a.set(j, i, c.coeffs[v.name] ?? 0);
+      });
+    });
+    const cB = Matrix.columnVector(basic.map((v) => v.cost));
+    const y = pseudoInverse(a).mmul(cB);
+    binding.forEach((c, i) => {
+      duals[c.name] = y.get(i, 0);
+    });
+  }
+  const reducedCosts: Record<string, number> = {};
+  for (const v of p.variables) {
+    let rc = v.cost;
+    for (const c of p.constraints) rc -= (c.coeffs[v.name] ?? 0) * duals[c.name]!;
+    reducedCosts[v.name] = Math.abs(rc) <= tol * (1 + Math.abs(v.cost)) ? 0 : rc;
+  }
+  return { duals, reducedCosts };
+}
+
+interface JsLpResult {
+  feasible: boolean;
+  bounded?: boolean;
+  result: number;
+  [name: string]: number | boolean | undefined;
+}
+
+/**
+ * Solves `p` with javascript-lp-solver (meant for problems of a few dozen variables; it is hundreds of
+ * times slower than HiGHS at 500). Never throws.
+ */
+export function solveLpJs(p: LpProblem): LpResult {
+  const problemError = validate(p);
+  if (problemError)
+    return emptyResult("javascript-lp-solver", "error", "OPTIMIZE_INVALID_PROBLEM", problemError);
+  // Attribute names are prefixed so that constraint, bound and objective names cannot collide.
+  const OBJ = "\u0000objective";
+  const constraints: Record<string, { min?: number; max?: number; equal?: number }> = {};
+  const variables: Record<string, Record<string, number>> = {};
+  const ints: Record<string, 1> = {};
+  const unrestricted: Record<string, 1> = {};
+  for (const v of p.variables) {
+    variables[v.name] = { [OBJ]: v.cost };
+    if (v.integer) ints[v.name] = 1;
+    const lo = lbOf(v);
+    const hi = ubOf(v);
+    if (lo !== 0) unrestricted[v.name] = 1;
+    const key = `\u0000bound ${v.name}`;
+    const bound: { min?: number; max?: number } = {};
+    if (lo !== 0 && Number.isFinite(lo)) bound.min = lo;
+    if (Number.isFinite(hi)) bound.max = hi;
+    if (bound.min !== undefined || bound.max !== undefined) {
+      constraints[key] = bound;
+      variables[v.name]![key] = 1;
+    }
+  }
+  for (const c of p.constraints) {
+    const key = `\u0000row ${c.name}`;
+    const lo = c.lb ?? Number.NEGATIVE_INFINITY;
+    const hi = c.ub ?? Number.POSITIVE_INFINITY;
+    const spec: { min?: number; max?: number; equal?: number } = {};
+    if (lo === hi) spec.equal = lo;
+    else {
+      if (Number.isFinite(lo)) spec.min = lo;
+      if (Number.isFinite(hi)) spec.max = hi;
+    }
+    constraints[key] = spec;
+    for (const [name, a] of Object.entries(c.coeffs)) variables[name]![key] = a;
+  }
+  let raw: JsLpResult;
+  try {
+    raw = jsLpSolver.Solve({
+      optimize: OBJ,
+      opType: p.sense,
+      constraints,
+      variables,
+      ints,
+      unrestricted,
+    }) as JsLpResult;
+  } catch (err) {
+    return emptyResult(
+      "javascript-lp-solver",
+      "error",
+      "OPTIMIZE_SOLVER_FAILED",
+      `solver threw: ${String(err)}`,
+    );
+  }
+  if (!raw.feasible)
+    return emptyResult(
+      "javascript-lp-solver",
+      "infeasible",
+      "OPTIMIZE_INFEASIBLE",
+      "javascript-lp-solver found no feasible point",
+    );
+  if (raw.bounded === false || !Number.isFinite(raw.result))
+    return emptyResult(
+      "javascript-lp-solver",
+      "unbounded",
+      "OPTIMIZE_UNBOUNDED",
+      "javascript-lp-solver reports unbounded",
+    );
+  const values: Record<string, number> = {};
+  let objective = 0;
+  for (const v of p.variables) {
+    const x = raw[v.name];
+    values[v.name] = typeof x === "number" ? x : 0;
+    objective += v.cost * values[v.name]!;
+  }
+  const fixed = new Set(p.variables.filter((v) => v.integer).map((v) => v.name));
+  const { duals, reducedCosts } = activeSetDuals(p, values, { fixed });
+  return {
+    status: "optimal",
+    message: "optimal",
+    objective,
+    values,
+    duals,
+    reducedCosts,
+    solver: "javascript-lp-solver",
+  };
+}

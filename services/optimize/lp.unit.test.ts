@@ -1,0 +1,172 @@
+import { beforeAll, describe, expect, test } from "vitest";
+import { createHighsLp, type LpProblem, loadHighs, solveLpHighs, solveLpJs } from "./lp.js";
+
+let highs: Awaited<ReturnType<typeof loadHighs>>;
+beforeAll(async () => {
+  highs = await loadHighs();
+});
+
+/**
+ * A two-product LP solved by hand: max 4a + 3b s.t. labour a + b ≤ 10, machine 2a + b ≤ 16, a ≤ 7.
+ * Vertices: (0,0) 0, (0,10) 30, (6,4) 36, (7,2) 34, (7,0) 28, so the optimum is (6,4) with 36.
+ * Both rows bind; c_B = A_Bᵀy gives 4 = y1 + 2y2, 3 = y1 + y2, so y = (2, 1).
+ */
+const handSolved: LpProblem = {
+  sense: "max",
+  variables: [
+    { name: "a", cost: 4, ub: 7 },
+    { name: "b", cost: 3 },
+  ],
+  constraints: [
+    { name: "labour", coeffs: { a: 1, b: 1 }, ub: 10 },
+    { name: "machine", coeffs: { a: 2, b: 1 }, ub: 16 },
+  ],
+};
+
+/** Small blending LP (invented): minimize cost of a 100 kg blend meeting two quality limits. */
+const blend: LpProblem = {
+  sense: "min",
+  variables: [
+    { name: "crudeA", cost: 0.42, ub: 60 },
+    { name: "crudeB", cost: 0.35 },
+    { name: "crudeC", cost: 0.51, lb: 5 },
+  ],
+  constraints: [
+    { name: "mass", coeffs: { crudeA: 1, crudeB: 1, crudeC: 1 }, lb: 100, ub: 100 },
+    { name: "sulfur", coeffs: { crudeA: 0.8, crudeB: 2.5, crudeC: 0.3 }, ub: 120 },
+    { name: "density", coeffs: { crudeA: 850, crudeB: 880, crudeC: 820 }, lb: 84_000, ub: 86_500 },
+  ],
+};
+
+/** A free variable, a ≥ row and an equality (invented). */
+const mixed: LpProblem = {
+  sense: "max",
+  variables: [
+    { name: "x", cost: 1, lb: -5, ub: 5 },
+    { name: "y", cost: 2, lb: Number.NEGATIVE_INFINITY, ub: 4 },
+    { name: "z", cost: -1, lb: 0, ub: 10 },
+  ],
+  constraints: [
+    { name: "link", coeffs: { x: 1, y: -1, z: 1 }, lb: 1 },
+    { name: "cap", coeffs: { x: 1, y: 1, z: 2 }, ub: 12 },
+    { name: "balance", coeffs: { x: 2, z: -1 }, lb: 3, ub: 3 },
+  ],
+};
+
+/** MILP (invented): two integer units and a continuous top-up. */
+const milp: LpProblem = {
+  sense: "max",
+  variables: [
+    { name: "units", cost: 4, ub: 7, integer: true },
+    { name: "batches", cost: 3, ub: 20, integer: true },
+    { name: "topUp", cost: 2.5, lb: -1, ub: 3 },
+  ],
+  constraints: [
+    { name: "labour", coeffs: { units: 1, batches: 1, topUp: 1 }, ub: 10.5 },
+    { name: "machine", coeffs: { units: 2, batches: 1, topUp: 3 }, ub: 16.3 },
+    { name: "mix", coeffs: { batches: 1, topUp: -1 }, lb: 1 },
+  ],
+};
+
+const bindingDuals = (r: ReturnType<typeof solveLpJs>) =>
+  Object.fromEntries(Object.entries(r.duals).filter(([, y]) => Math.abs(y) > 1e-9));
+
+describe("LP and MILP", () => {
+  test("both solvers find the hand-derived optimum and shadow prices of a two-product LP", () => {
+    // when
+    const h = solveLpHighs(highs, handSolved);
+    const j = solveLpJs(handSolved);
+    // then
+    // Source: derived by hand in the comment above handSolved (vertex enumeration), common practice, no source
+    for (const r of [h, j]) {
+      expect(r.status).toBe("optimal");
+      expect(r.objective).toBeCloseTo(36, 9);
+      expect(r.values.a).toBeCloseTo(6, 7);
+      expect(r.values.b).toBeCloseTo(4, 7);
+      expect(r.duals.labour).toBeCloseTo(2, 7);
+      expect(r.duals.machine).toBeCloseTo(1, 7);
+    }
+  });
+
+  for (const [name, p] of [
+    ["blending (min, equality, ranged row, lower bound)", blend],
+    ["mixed (max, free variable, equality)", mixed],
+    ["MILP with integer variables", milp],
+  ] as const) {
+    test(`javascript-lp-solver agrees with HiGHS on ${name}`, () => {
+      // when
+      const h = solveLpHighs(highs, p);
+      const j = solveLpJs(p);
+      // then
+      // Source: CHECK-VALUES.md §5 — cross-check against HiGHS (npm highs), reproduced (HiGHS 1.15)
+      expect(h.status).toBe("optimal");
+      expect(j.status).toBe("optimal");
+      expect(Math.abs(j.objective - h.objective)).toBeLessThanOrEqual(
+        1e-7 * Math.max(1, Math.abs(h.objective)),
+      );
+      const hb = bindingDuals(h);
+      expect(Object.keys(hb).length).toBeGreaterThan(0);
+      for (const [row, y] of Object.entries(hb)) expect(j.duals[row]).toBeCloseTo(y, 6);
+    });
+  }
+
+  test("HiGHS duals equal the change of the optimum per unit of the binding limit", () => {
+    // given
+    const base = solveLpHighs(highs, blend);
+    const bump = (row: string, delta: number): LpProblem => ({
+      ...blend,
+      constraints: blend.constraints.map((c) =>
+        c.name !== row
+          ? c
+          : { ...c, ub: (c.ub ?? 0) + delta, lb: c.lb === c.ub ? (c.lb ?? 0) + delta : c.lb },
+      ),
+    });
+    // then: for each binding row, (obj(b + δ) − obj(b)) / δ = dual
+    for (const [row, y] of Object.entries(bindingDuals(base))) {
+      const moved = solveLpHighs(highs, bump(row, 1e-3));
+      expect((moved.objective - base.objective) / 1e-3).toBeCloseTo(y, 6);
+    }
+  });
+
+  test("a kept HiGHS model re-solved after a cost change equals a fresh solve", () => {
+    // given
+    const lp = createHighsLp(highs, blend);
+    try {
+      lp.solve();
+      // when
+      lp.setCosts({ crudeB: 0.47 });
+      const warm = lp.solve();
+      // then
+      const fresh = solveLpHighs(highs, {
+        ...blend,
+        variables: blend.variables.map((v) => (v.name === "crudeB" ? { ...v, cost: 0.47 } : v)),
+      });
+      expect(warm.objective).toBeCloseTo(fresh.objective, 9);
+      expect(warm.values).toEqual(fresh.values);
+    } finally {
+      lp.dispose();
+    }
+  });
+
+  test("both solvers report an infeasible problem as infeasible", () => {
+    const p: LpProblem = {
+      sense: "min",
+      variables: [{ name: "x", cost: 1, ub: 1 }],
+      constraints: [{ name: "demand", coeffs: { x: 1 }, lb: 2 }],
+    };
+    expect(solveLpHighs(highs, p).status).toBe("infeasible");
+    expect(solveLpJs(p).status).toBe("infeasible");
+  });
+
+  test("refuses a constraint on an undeclared variable without throwing", () => {
+    const p: LpProblem = {
+      sense: "min",
+      variables: [{ name: "x", cost: 1 }],
+      constraints: [{ name: "c", coeffs: { y: 1 }, ub: 1 }],
+    };
+    const r = solveLpJs(p);
+    expect(r.status).toBe("error");
+    expect(r.code).toBe("OPTIMIZE_INVALID_PROBLEM");
+    expect(solveLpHighs(highs, p).message).toContain('"y"');
+  });
+});
