@@ -32,7 +32,13 @@ const text = (p: Uint8Array) => Buffer.from(p).toString("utf8");
 const bytes = (s: string) => Buffer.from(s, "utf8");
 
 function emitterFor(site: string, service = "probe"): Emitter {
-  return { site, service, instance: "0", clock: new ManualClock(Date.parse("2026-12-02T00:00:00Z")), registry: schemaRegistry() };
+  return {
+    site,
+    service,
+    instance: "0",
+    clock: new ManualClock(Date.parse("2026-12-02T00:00:00Z")),
+    registry: schemaRegistry(),
+  };
 }
 
 function reading(emitter: Emitter, i: number) {
@@ -84,7 +90,9 @@ export function busContract(name: string, fixture: TransportFixture): void {
       await sub.subscribe(subject(site, "raw.seq"), (m) => {
         got.push(Number(text(m.payload)));
       });
-      await Promise.all(Array.from({ length: 500 }, (_, i) => pub.publish(subject(site, "raw.seq"), bytes(String(i)))));
+      await Promise.all(
+        Array.from({ length: 500 }, (_, i) => pub.publish(subject(site, "raw.seq"), bytes(String(i)))),
+      );
       expect(await waitFor(() => got.length >= 500, 10_000)).toBe(true);
       expect(got).toEqual(Array.from({ length: 500 }, (_, i) => i));
     });
@@ -94,7 +102,9 @@ export function busContract(name: string, fixture: TransportFixture): void {
       const a = await open(site);
       if (!a.capabilities.groups) {
         // The transport refuses a group rather than losing messages.
-        await expect(a.subscribe(subject(site, "snapshot"), () => undefined, { group: "g" })).rejects.toMatchObject({
+        await expect(
+          a.subscribe(subject(site, "snapshot"), () => undefined, { group: "g" }),
+        ).rejects.toMatchObject({
           code: "KIT_BUS_CAPABILITY",
         });
         ctx.skip();
@@ -104,8 +114,12 @@ export function busContract(name: string, fixture: TransportFixture): void {
       const pub = await open(site);
       const gotA: number[] = [];
       const gotB: number[] = [];
-      await a.subscribe(subject(site, "snapshot"), (m) => void gotA.push(Number(text(m.payload))), { group: "workers" });
-      await b.subscribe(subject(site, "snapshot"), (m) => void gotB.push(Number(text(m.payload))), { group: "workers" });
+      await a.subscribe(subject(site, "snapshot"), (m) => void gotA.push(Number(text(m.payload))), {
+        group: "workers",
+      });
+      await b.subscribe(subject(site, "snapshot"), (m) => void gotB.push(Number(text(m.payload))), {
+        group: "workers",
+      });
       for (let i = 0; i < 200; i++) await pub.publish(subject(site, "snapshot"), bytes(String(i)));
       expect(await waitFor(() => gotA.length + gotB.length >= 200, 10_000)).toBe(true);
       await new Promise((r) => setTimeout(r, 200));
@@ -125,7 +139,8 @@ export function busContract(name: string, fixture: TransportFixture): void {
       });
       await first.close();
       const pub = await open(site);
-      for (let i = 0; i < 50; i++) await pub.publish(subject(site, "proposal"), bytes(String(i)), { msgId: `m${i}` });
+      for (let i = 0; i < 50; i++)
+        await pub.publish(subject(site, "proposal"), bytes(String(i)), { msgId: `m${i}` });
       const again = await open(site, { clientId });
       const after: number[] = [];
       await again.subscribe(subject(site, "proposal"), (m) => void after.push(Number(text(m.payload))), {
@@ -152,7 +167,8 @@ export function busContract(name: string, fixture: TransportFixture): void {
         await sub.subscribe(subject(site, "reconciled"), (m) => void got.add(Number(text(m.payload))), {
           durable: "reconciled-reader",
         });
-        for (let i = 0; i < 100; i++) await pub.publish(subject(site, "reconciled"), bytes(String(i)), { msgId: `a${i}` });
+        for (let i = 0; i < 100; i++)
+          await pub.publish(subject(site, "reconciled"), bytes(String(i)), { msgId: `a${i}` });
         await broker.restart();
         // Publishing resumes once the client has reconnected on its own.
         for (let i = 100; i < 200; i++) {
@@ -178,7 +194,9 @@ export function busContract(name: string, fixture: TransportFixture): void {
       const site = newSite();
       const bus = await open(site);
       if (!bus.capabilities.requestReply) {
-        await expect(bus.request(`req.${site}.ping`, bytes("?"))).rejects.toMatchObject({ code: "KIT_BUS_CAPABILITY" });
+        await expect(bus.request(`req.${site}.ping`, bytes("?"))).rejects.toMatchObject({
+          code: "KIT_BUS_CAPABILITY",
+        });
         ctx.skip();
         return;
       }
@@ -209,18 +227,34 @@ export function busContract(name: string, fixture: TransportFixture): void {
       await events.on(subject(site, "measurements"), ["rto.measurements.v1"], (e) => void handled.push(e.id));
       const dead: DeadLetter[] = [];
       const watcher = await open(site);
-      await watcher.subscribe(subject(site, "deadletter"), (m) => void dead.push(JSON.parse(text(m.payload)).data));
+      await watcher.subscribe(
+        subject(site, "deadletter"),
+        (m) => void dead.push(JSON.parse(text(m.payload)).data),
+      );
       const to = subject(site, "measurements");
       const good = reading(emitter, 1);
-      const invalid = { ...reading(emitter, 2), data: { source: "x", values: [{ tag: "TI-101", value: "hot", quality: "good", time: 1 }] } };
-      const other = createEvent(emitter, "rto.heartbeat.v1", { service: "x", instance: "0", status: "running", intervalS: 5 });
+      const invalid = {
+        ...reading(emitter, 2),
+        data: { source: "x", values: [{ tag: "TI-101", value: "hot", quality: "good", time: 1 }] },
+      };
+      const other = createEvent(emitter, "rto.heartbeat.v1", {
+        service: "x",
+        instance: "0",
+        status: "running",
+        intervalS: 5,
+      });
       await bus.publish(to, bytes("{not json"));
       await bus.publish(to, bytes(JSON.stringify(invalid)));
       await bus.publish(to, bytes(`{"pad":"${"x".repeat(5000)}"}`));
       await bus.publish(to, encodeEvent(other));
       await bus.publish(to, encodeEvent(good));
       expect(await waitFor(() => dead.length >= 4 && handled.length >= 1, 10_000)).toBe(true);
-      expect(dead.map((d) => d.reason)).toEqual(["parse-error", "schema-invalid", "too-large", "unknown-type"]);
+      expect(dead.map((d) => d.reason)).toEqual([
+        "parse-error",
+        "schema-invalid",
+        "too-large",
+        "unknown-type",
+      ]);
       expect(dead[1]?.errors?.[0]?.path).toBe("/data/values/0/value");
       expect(dead[0]?.payloadHead).toBe("{not json");
       expect(dead.every((d) => d.subject === to && d.service === "steady")).toBe(true);
@@ -254,11 +288,18 @@ export function busContract(name: string, fixture: TransportFixture): void {
         throw Object.assign(new Error("model blew up"), { code: "TEST_FAILURE" });
       });
       const dead: DeadLetter[] = [];
-      await bus.subscribe(subject(site, "deadletter"), (m) => void dead.push(JSON.parse(text(m.payload)).data));
+      await bus.subscribe(
+        subject(site, "deadletter"),
+        (m) => void dead.push(JSON.parse(text(m.payload)).data),
+      );
       await bus.publish(subject(site, "measurements"), encodeEvent(reading(emitter, 1)));
       expect(await waitFor(() => dead.length === 1, 5000)).toBe(true);
       expect(calls).toBe(3);
-      expect(dead[0]).toMatchObject({ reason: "handler-failed", attempts: 3, detail: "TEST_FAILURE: model blew up" });
+      expect(dead[0]).toMatchObject({
+        reason: "handler-failed",
+        attempts: 3,
+        detail: "TEST_FAILURE: model blew up",
+      });
     });
   });
 }

@@ -22,7 +22,11 @@ export const baseConfigProperties = {
     additionalProperties: false,
     default: {},
     properties: {
-      transport: { enum: ["mqtt", "nats", "embedded"], default: "mqtt", description: "Broker kind. Default mqtt." },
+      transport: {
+        enum: ["mqtt", "nats", "embedded"],
+        default: "mqtt",
+        description: "Broker kind. Default mqtt.",
+      },
       url: { type: "string", default: "mqtt://127.0.0.1:1883", description: "Broker URL." },
       clientId: { type: "string", maxLength: 64, description: "Stable MQTT client id (persistent session)." },
       username: { type: "string", maxLength: 64 },
@@ -34,12 +38,28 @@ export const baseConfigProperties = {
     additionalProperties: false,
     default: {},
     properties: {
-      enabled: { type: "boolean", default: true, description: "Serve /healthz, /readyz, /metrics. Default true." },
+      enabled: {
+        type: "boolean",
+        default: true,
+        description: "Serve /healthz, /readyz, /metrics. Default true.",
+      },
       host: { type: "string", default: "127.0.0.1", description: "Interface. Default loopback." },
-      port: { type: "integer", minimum: 0, maximum: 65535, default: 0, description: "Port; 0 picks a free one. Default 0." },
+      port: {
+        type: "integer",
+        minimum: 0,
+        maximum: 65535,
+        default: 0,
+        description: "Port; 0 picks a free one. Default 0.",
+      },
     },
   },
-  heartbeatS: { type: "number", exclusiveMinimum: 0, maximum: 3600, default: 5, description: "Heartbeat period, s. Default 5." },
+  heartbeatS: {
+    type: "number",
+    exclusiveMinimum: 0,
+    maximum: 3600,
+    default: 5,
+    description: "Heartbeat period, s. Default 5.",
+  },
   maxMessageBytes: {
     type: "integer",
     minimum: 1024,
@@ -53,7 +73,13 @@ export const baseConfigProperties = {
 export interface BaseConfig {
   site: string;
   instance: string;
-  bus: { transport: "mqtt" | "nats" | "embedded"; url: string; clientId?: string; username?: string; password?: string };
+  bus: {
+    transport: "mqtt" | "nats" | "embedded";
+    url: string;
+    clientId?: string;
+    username?: string;
+    password?: string;
+  };
   http: { enabled: boolean; host: string; port: number };
   heartbeatS: number;
   maxMessageBytes: number;
@@ -86,7 +112,10 @@ function deepFreeze<T>(value: T): T {
  * level, e.g. STEADFAST_BUS__CLIENT_ID=r1-ingest → { bus: { clientId: "r1-ingest" } }. Values
  * that parse as JSON (numbers, booleans, objects) are taken as such.
  */
-export function envOverrides(env: Record<string, string | undefined>, prefix = "STEADFAST_"): Record<string, unknown> {
+export function envOverrides(
+  env: Record<string, string | undefined>,
+  prefix = "STEADFAST_",
+): Record<string, unknown> {
   const out: Record<string, unknown> = {};
   for (const [name, raw] of Object.entries(env)) {
     if (!name.startsWith(prefix) || raw === undefined) continue;
@@ -102,8 +131,12 @@ export function envOverrides(env: Record<string, string | undefined>, prefix = "
     }
     let node = out;
     path.forEach((key, i) => {
-      if (i === path.length - 1) node[key] = value;
-      else node = (node[key] ??= {}) as Record<string, unknown>;
+      if (i === path.length - 1) {
+        node[key] = value;
+        return;
+      }
+      node[key] ??= {};
+      node = node[key] as Record<string, unknown>;
     });
   }
   return out;
@@ -114,7 +147,12 @@ function merge(a: Record<string, unknown>, b: Record<string, unknown>): Record<s
   for (const [k, v] of Object.entries(b)) {
     const prev = out[k];
     out[k] =
-      v && typeof v === "object" && !Array.isArray(v) && prev && typeof prev === "object" && !Array.isArray(prev)
+      v &&
+      typeof v === "object" &&
+      !Array.isArray(v) &&
+      prev &&
+      typeof prev === "object" &&
+      !Array.isArray(prev)
         ? merge(prev as Record<string, unknown>, v as Record<string, unknown>)
         : v;
   }
@@ -132,15 +170,22 @@ export function readConfigFile(path: string): Record<string, unknown> {
  * Validates `sources` (merged left to right: later wins) against `schema`, fills defaults, and
  * returns a frozen config. Throws KitError KIT_CONFIG_INVALID naming the JSON path of the bad field.
  */
-export function loadConfig<T>(schema: Record<string, unknown>, ...sources: Array<Record<string, unknown>>): Readonly<T> {
+export function loadConfig<T>(
+  schema: Record<string, unknown>,
+  ...sources: Array<Record<string, unknown>>
+): Readonly<T> {
   const ajv = createAjv({ useDefaults: true });
   const validate = ajv.compile(schema);
   const value = sources.reduce((acc, s) => merge(acc, s), {} as Record<string, unknown>);
   if (!validate(value)) {
     const e = validate.errors?.[0];
     const path = e?.instancePath || "/";
-    const field = e?.params && "missingProperty" in e.params ? `${path === "/" ? "" : path}/${String(e.params.missingProperty)}` : path;
-    const extra = e?.params && "additionalProperty" in e.params ? ` ('${String(e.params.additionalProperty)}')` : "";
+    const field =
+      e?.params && "missingProperty" in e.params
+        ? `${path === "/" ? "" : path}/${String(e.params.missingProperty)}`
+        : path;
+    const extra =
+      e?.params && "additionalProperty" in e.params ? ` ('${String(e.params.additionalProperty)}')` : "";
     throw new KitError("KIT_CONFIG_INVALID", `config field ${field}${extra}: ${e?.message ?? "invalid"}`);
   }
   return deepFreeze(value) as Readonly<T>;

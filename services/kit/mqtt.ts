@@ -6,7 +6,15 @@
  */
 import { randomBytes } from "node:crypto";
 import mqtt, { type IClientOptions, type IPublishPacket, type MqttClient } from "mqtt";
-import type { Bus, Capabilities, PublishOptions, RawHandler, RawMessage, SubscribeOptions, Subscription } from "./bus.js";
+import type {
+  Bus,
+  Capabilities,
+  PublishOptions,
+  RawHandler,
+  RawMessage,
+  SubscribeOptions,
+  Subscription,
+} from "./bus.js";
 import { SerialQueue } from "./bus.js";
 import { KitError } from "./errors.js";
 import { assertSubject, fromMqtt, matches, toMqtt } from "./subjects.js";
@@ -75,6 +83,7 @@ class MqttBus implements Bus {
   private readonly clientId: string;
   private readonly v5: boolean;
   private closing = false;
+  private firstConnect = true;
   private nextId = 1;
   private attempt = 0;
   private readonly reconnectTimers = new Map<MqttClient, NodeJS.Timeout>();
@@ -106,7 +115,7 @@ class MqttBus implements Bus {
       reconnectPeriod: 0,
       connectTimeout: this.o.connectTimeoutMs ?? 10_000,
       keepalive: 30,
-      resubscribe: true,
+      resubscribe: false,
     };
     if (this.v5 && !opts.clean) opts.properties = { sessionExpiryInterval: this.o.sessionExpiryS ?? 3600 };
     if (this.o.username) opts.username = this.o.username;
@@ -143,13 +152,33 @@ class MqttBus implements Bus {
         this.attempt = 0;
       });
     }
-    await Promise.all([client, this.pub].map((c) => this.firstConnect(c, opts.connectTimeout ?? 10_000)));
+    // mqtt.js only resubscribes by itself with its fixed reconnect period; with our backoff we
+    // renew the subscriptions when the broker has lost the session (restart without a store).
+    client.on("connect", (ack) => {
+      if (!ack.sessionPresent && !this.firstConnect) this.resubscribe();
+    });
+    await Promise.all([client, this.pub].map((c) => this.awaitConnect(c, opts.connectTimeout ?? 10_000)));
+    this.firstConnect = false;
     if (this.v5) {
       await this.client.subscribeAsync(`${INBOX}/${this.clientId}/#`, { qos: 0 });
     }
   }
 
-  private firstConnect(client: MqttClient, timeoutMs: number): Promise<void> {
+  private resubscribe(): void {
+    const subs = [...this.entries].map((e) => this.subscribePacket(e));
+    if (this.v5)
+      subs.push(this.client.subscribeAsync(`${INBOX}/${this.clientId}/#`, { qos: 0 }).then(() => undefined));
+    Promise.all(subs).catch((err: Error) => this.o.onError?.(err));
+  }
+
+  private async subscribePacket(entry: Entry): Promise<void> {
+    await this.client.subscribeAsync(
+      entry.mqttFilter,
+      this.v5 ? { qos: 1, properties: { subscriptionIdentifier: entry.id } } : { qos: 1 },
+    );
+  }
+
+  private awaitConnect(client: MqttClient, timeoutMs: number): Promise<void> {
     return new Promise<void>((resolve, reject) => {
       const done = (err?: Error) => {
         clearTimeout(timer);
@@ -161,9 +190,14 @@ class MqttBus implements Bus {
       };
       const onConnect = () => done();
       const onError = (err: Error) =>
-        done(new KitError("KIT_BUS_CONNECT", `MQTT connect to ${this.o.url} failed: ${err.message}`, { cause: err }));
+        done(
+          new KitError("KIT_BUS_CONNECT", `MQTT connect to ${this.o.url} failed: ${err.message}`, {
+            cause: err,
+          }),
+        );
       const timer = setTimeout(
-        () => done(new KitError("KIT_BUS_CONNECT", `no MQTT connection to ${this.o.url} within ${timeoutMs} ms`)),
+        () =>
+          done(new KitError("KIT_BUS_CONNECT", `no MQTT connection to ${this.o.url} within ${timeoutMs} ms`)),
         timeoutMs,
       );
       client.on("connect", onConnect);
@@ -247,14 +281,18 @@ class MqttBus implements Bus {
    */
   private park(msg: RawMessage): void {
     if (this.parked.length >= 10_000) {
-      this.o.onError?.(new Error(`MQTT: more than 10000 messages without a handler; dropping '${msg.subject}'`));
+      this.o.onError?.(
+        new Error(`MQTT: more than 10000 messages without a handler; dropping '${msg.subject}'`),
+      );
       return;
     }
     this.parked.push(msg);
     this.parkTimer ??= setTimeout(() => {
       this.parkTimer = undefined;
       for (const m of this.parked.splice(0)) {
-        this.o.onError?.(new Error(`MQTT message on '${m.subject}' matched no handler within the hold time; dropped`));
+        this.o.onError?.(
+          new Error(`MQTT message on '${m.subject}' matched no handler within the hold time; dropped`),
+        );
       }
     }, this.o.unmatchedHoldMs ?? 5000);
   }
@@ -272,17 +310,28 @@ class MqttBus implements Bus {
   async publish(subject: string, payload: Uint8Array, options: PublishOptions = {}): Promise<void> {
     if (this.closing) throw new KitError("KIT_BUS_CLOSED", "publish after close()");
     assertSubject(subject);
-    await this.pub.publishAsync(toMqtt(subject), Buffer.from(payload.buffer, payload.byteOffset, payload.byteLength), {
-      qos: 1,
-      retain: options.retain ?? false,
-    });
+    await this.pub.publishAsync(
+      toMqtt(subject),
+      Buffer.from(payload.buffer, payload.byteOffset, payload.byteLength),
+      {
+        qos: 1,
+        retain: options.retain ?? false,
+      },
+    );
   }
 
-  async subscribe(filter: string, handler: RawHandler, options: SubscribeOptions = {}): Promise<Subscription> {
+  async subscribe(
+    filter: string,
+    handler: RawHandler,
+    options: SubscribeOptions = {},
+  ): Promise<Subscription> {
     if (this.closing) throw new KitError("KIT_BUS_CLOSED", "subscribe after close()");
     assertSubject(filter, true);
     if (options.durable && this.o.clientId === undefined) {
-      throw new KitError("KIT_BUS_CAPABILITY", `durable subscription '${options.durable}' needs a stable MQTT clientId`);
+      throw new KitError(
+        "KIT_BUS_CAPABILITY",
+        `durable subscription '${options.durable}' needs a stable MQTT clientId`,
+      );
     }
     let mqttFilter = toMqtt(filter);
     if (options.group) {
@@ -296,13 +345,17 @@ class MqttBus implements Bus {
       assertSubject(options.group);
       mqttFilter = `$share/${options.group}/${mqttFilter}`;
     }
-    const entry: Entry = { id: this.nextId++, filter, durable: !!options.durable, handler, queue: new SerialQueue(), mqttFilter };
+    const entry: Entry = {
+      id: this.nextId++,
+      filter,
+      durable: !!options.durable,
+      handler,
+      queue: new SerialQueue(),
+      mqttFilter,
+    };
     this.entries.add(entry);
     this.unpark(entry);
-    await this.client.subscribeAsync(
-      mqttFilter,
-      this.v5 ? { qos: 1, properties: { subscriptionIdentifier: entry.id } } : { qos: 1 },
-    );
+    await this.subscribePacket(entry);
     return {
       unsubscribe: async () => {
         this.entries.delete(entry);
@@ -313,9 +366,16 @@ class MqttBus implements Bus {
     };
   }
 
-  async request(subject: string, payload: Uint8Array, options: { timeoutMs?: number } = {}): Promise<Uint8Array> {
+  async request(
+    subject: string,
+    payload: Uint8Array,
+    options: { timeoutMs?: number } = {},
+  ): Promise<Uint8Array> {
     if (!this.capabilities.requestReply) {
-      throw new KitError("KIT_BUS_CAPABILITY", `request/reply needs MQTT 5; ${this.transport} speaks MQTT 3.1.1`);
+      throw new KitError(
+        "KIT_BUS_CAPABILITY",
+        `request/reply needs MQTT 5; ${this.transport} speaks MQTT 3.1.1`,
+      );
     }
     assertSubject(subject);
     const corr = randomBytes(8);

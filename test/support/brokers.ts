@@ -5,7 +5,7 @@
  * configured so that they cannot drop messages silently.
  */
 import { type ChildProcess, execFileSync, spawn } from "node:child_process";
-import { mkdtempSync, rmSync, writeFileSync } from "node:fs";
+import { chmodSync, mkdtempSync, rmSync, writeFileSync } from "node:fs";
 import { createConnection, createServer } from "node:net";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
@@ -93,8 +93,11 @@ function stopProcess(p: ChildProcess): Promise<void> {
  * default of 1000 silently drops even QoS 1 messages for a lagging subscriber (LIBRARY-NOTES).
  */
 export async function startMosquitto(): Promise<OwnBroker> {
-  if (!hasBinary("mosquitto")) throw new KitError("KIT_BROKER_UNAVAILABLE", "no mosquitto binary on this machine");
+  if (!hasBinary("mosquitto"))
+    throw new KitError("KIT_BROKER_UNAVAILABLE", "no mosquitto binary on this machine");
   const dir = mkdtempSync(join(tmpdir(), "sf-mosq-"));
+  // Mosquitto started as root drops to the 'mosquitto' user, which must be able to write its store.
+  chmodSync(dir, 0o777);
   const port = await freePort();
   const conf = join(dir, "mosquitto.conf");
   writeFileSync(
@@ -132,14 +135,19 @@ export async function startMosquitto(): Promise<OwnBroker> {
 
 /** nats-server with JetStream on a free port and its own store directory. */
 export async function startNatsServer(extraArgs: string[] = []): Promise<OwnBroker> {
-  if (!hasBinary("nats-server")) throw new KitError("KIT_BROKER_UNAVAILABLE", "no nats-server binary on this machine");
+  if (!hasBinary("nats-server"))
+    throw new KitError("KIT_BROKER_UNAVAILABLE", "no nats-server binary on this machine");
   const dir = mkdtempSync(join(tmpdir(), "sf-nats-"));
   const port = await freePort();
   let proc: ChildProcess;
   const launch = async () => {
-    proc = spawn(binaryPath("nats-server"), ["-a", "127.0.0.1", "-p", String(port), "-js", "-sd", dir, ...extraArgs], {
-      stdio: "ignore",
-    });
+    proc = spawn(
+      binaryPath("nats-server"),
+      ["-a", "127.0.0.1", "-p", String(port), "-js", "-sd", dir, ...extraArgs],
+      {
+        stdio: "ignore",
+      },
+    );
     await waitReachable(port);
   };
   await launch();
@@ -166,7 +174,15 @@ async function fromContainers(image: string, port: number): Promise<string | und
   const name = "testcontainers";
   // Optional: only where the package is installed and a Docker engine answers.
   const mod = (await import(name).catch(() => undefined)) as
-    | { GenericContainer: new (image: string) => { withExposedPorts(p: number): { start(): Promise<{ getMappedPort(p: number): number; getHost(): string }> } } }
+    | {
+        GenericContainer: new (
+          image: string,
+        ) => {
+          withExposedPorts(p: number): {
+            start(): Promise<{ getMappedPort(p: number): number; getHost(): string }>;
+          };
+        };
+      }
     | undefined;
   if (!mod) return undefined;
   const c = await new mod.GenericContainer(image).withExposedPorts(port).start();
