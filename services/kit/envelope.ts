@@ -101,7 +101,12 @@ function checkEvent(registry: SchemaRegistry, value: unknown): Decoded {
   const type = value.type;
   const validate = registry.has(type) ? registry.validatorOf(type) : undefined;
   if (!validate) {
-    return { ok: false, reason: "unknown-type", detail: `no schema for event type '${type}'`, ...idAndType(value) };
+    return {
+      ok: false,
+      reason: "unknown-type",
+      detail: `no schema for event type '${type}'`,
+      ...idAndType(value),
+    };
   }
   if (!validate(value.data)) {
     return {
@@ -127,7 +132,11 @@ function idAndType(e: Partial<EventEnvelope> | null): { eventId?: string; eventT
 /** Parses and validates an inbound payload. Never throws. */
 export function decodeEvent(registry: SchemaRegistry, payload: Uint8Array, maxBytes: number): Decoded {
   if (payload.byteLength > maxBytes) {
-    return { ok: false, reason: "too-large", detail: `payload of ${payload.byteLength} B exceeds the ${maxBytes} B limit` };
+    return {
+      ok: false,
+      reason: "too-large",
+      detail: `payload of ${payload.byteLength} B exceeds the ${maxBytes} B limit`,
+    };
   }
   let value: unknown;
   try {

@@ -3,8 +3,17 @@
  * handle them, and send whatever cannot be handled to the site's dead-letter stream with the reason.
  * The raw message is acknowledged only when the handler finished or the message was dead-lettered.
  */
-import type { Bus, Subscription, SubscribeOptions } from "./bus.js";
-import { type AnyEvent, createEvent, decodeEvent, type Emitter, type Event, type EventOptions, encodeEvent, type Refusal } from "./envelope.js";
+import type { Bus, SubscribeOptions, Subscription } from "./bus.js";
+import {
+  type AnyEvent,
+  createEvent,
+  decodeEvent,
+  type Emitter,
+  type Event,
+  type EventOptions,
+  encodeEvent,
+  type Refusal,
+} from "./envelope.js";
 import type { DeadLetter, EventDataMap, EventType } from "./generated/messages.js";
 import type { Logger } from "./log.js";
 import { type KitMetrics, streamLabel } from "./metrics.js";
@@ -33,7 +42,10 @@ export interface HandlerContext {
 }
 
 /** Handles one event of the accepted types. */
-export type EventHandler<T extends EventType> = (event: Event<T>, ctx: HandlerContext) => Promise<void> | void;
+export type EventHandler<T extends EventType> = (
+  event: Event<T>,
+  ctx: HandlerContext,
+) => Promise<void> | void;
 
 /** A bounded set of recently seen ids, oldest evicted first. */
 export class SeenIds {

@@ -4,7 +4,15 @@
  * server drops duplicates, durable pull consumers with explicit acks and bounded redelivery, and a
  * KV bucket for state. A NATS cluster is the distributed engine; nothing here replaces it.
  */
-import { AckPolicy, DeliverPolicy, type JetStreamClient, type JetStreamManager, jetstream, jetstreamManager, StorageType } from "@nats-io/jetstream";
+import {
+  AckPolicy,
+  DeliverPolicy,
+  type JetStreamClient,
+  type JetStreamManager,
+  jetstream,
+  jetstreamManager,
+  StorageType,
+} from "@nats-io/jetstream";
 import { type KV, Kvm } from "@nats-io/kv";
 import { connect, type NatsConnection, nanos } from "@nats-io/transport-node";
 import type { Bus, Capabilities, PublishOptions, RawHandler, SubscribeOptions, Subscription } from "./bus.js";
@@ -64,9 +72,13 @@ export async function connectNats(options: NatsBusOptions): Promise<Bus> {
       ...(options.pass ? { pass: options.pass } : {}),
     });
   } catch (err) {
-    throw new KitError("KIT_BUS_CONNECT", `NATS connect to ${String(options.servers)} failed: ${(err as Error).message}`, {
-      cause: err,
-    });
+    throw new KitError(
+      "KIT_BUS_CONNECT",
+      `NATS connect to ${String(options.servers)} failed: ${(err as Error).message}`,
+      {
+        cause: err,
+      },
+    );
   }
   const bus = new NatsBus(nc, options);
   await bus.init();
@@ -139,14 +151,24 @@ class NatsBus implements Bus {
     if (options.retain) await (await this.state()).put(subject, payload);
   }
 
-  async subscribe(filter: string, handler: RawHandler, options: SubscribeOptions = {}): Promise<Subscription> {
+  async subscribe(
+    filter: string,
+    handler: RawHandler,
+    options: SubscribeOptions = {},
+  ): Promise<Subscription> {
     if (this.closing) throw new KitError("KIT_BUS_CLOSED", "subscribe after close()");
     assertSubject(filter, true);
     if (options.group) assertSubject(options.group);
-    return options.durable ? this.subscribeDurable(filter, handler, options) : this.subscribeCore(filter, handler, options);
+    return options.durable
+      ? this.subscribeDurable(filter, handler, options)
+      : this.subscribeCore(filter, handler, options);
   }
 
-  private async subscribeCore(filter: string, handler: RawHandler, options: SubscribeOptions): Promise<Subscription> {
+  private async subscribeCore(
+    filter: string,
+    handler: RawHandler,
+    options: SubscribeOptions,
+  ): Promise<Subscription> {
     const sub = this.nc.subscribe(filter, options.group ? { queue: options.group } : {});
     const done = (async () => {
       for await (const m of sub) {
@@ -175,10 +197,17 @@ class NatsBus implements Bus {
     };
   }
 
-  private async subscribeDurable(filter: string, handler: RawHandler, options: SubscribeOptions): Promise<Subscription> {
+  private async subscribeDurable(
+    filter: string,
+    handler: RawHandler,
+    options: SubscribeOptions,
+  ): Promise<Subscription> {
     const stream = this.streamOf(filter.replace(/\.>$/, ".x").replace(/\*/g, "x"));
     if (!stream) {
-      throw new KitError("KIT_BUS_CAPABILITY", `durable subscription on '${filter}': no JetStream stream captures it`);
+      throw new KitError(
+        "KIT_BUS_CAPABILITY",
+        `durable subscription on '${filter}': no JetStream stream captures it`,
+      );
     }
     const durable = options.durable as string;
     assertSubject(durable);
@@ -221,13 +250,19 @@ class NatsBus implements Bus {
     };
   }
 
-  async request(subject: string, payload: Uint8Array, options: { timeoutMs?: number } = {}): Promise<Uint8Array> {
+  async request(
+    subject: string,
+    payload: Uint8Array,
+    options: { timeoutMs?: number } = {},
+  ): Promise<Uint8Array> {
     assertSubject(subject);
     try {
       const reply = await this.nc.request(subject, payload, { timeout: options.timeoutMs ?? 5000 });
       return reply.data;
     } catch (err) {
-      throw new KitError("KIT_REQUEST_TIMEOUT", `no reply on '${subject}': ${(err as Error).message}`, { cause: err });
+      throw new KitError("KIT_REQUEST_TIMEOUT", `no reply on '${subject}': ${(err as Error).message}`, {
+        cause: err,
+      });
     }
   }
 

@@ -24,10 +24,11 @@ export interface SchemaIssue {
 export function issuesOf(errors: ErrorObject[] | null | undefined): SchemaIssue[] {
   return (errors ?? []).slice(0, 20).map((e) => ({
     path: (e.instancePath || "/").slice(0, 500),
-    message: `${e.message ?? "invalid"}${e.params && Object.keys(e.params).length ? ` ${JSON.stringify(e.params)}` : ""}`.slice(
-      0,
-      500,
-    ),
+    message:
+      `${e.message ?? "invalid"}${e.params && Object.keys(e.params).length ? ` ${JSON.stringify(e.params)}` : ""}`.slice(
+        0,
+        500,
+      ),
   }));
 }
 

@@ -52,7 +52,11 @@ export interface Runtime {
 }
 
 /** Connects and starts the common parts of service `name`. */
-export async function startRuntime(name: string, config: Readonly<BaseConfig>, deps: Deps = {}): Promise<Runtime> {
+export async function startRuntime(
+  name: string,
+  config: Readonly<BaseConfig>,
+  deps: Deps = {},
+): Promise<Runtime> {
   const clock = deps.clock ?? systemClock;
   const log = deps.log ?? createLogger(name, { level: config.logLevel });
   const registry = deps.registry ?? schemaRegistry();
@@ -101,7 +105,9 @@ export async function startRuntime(name: string, config: Readonly<BaseConfig>, d
   }
   await events.publishEvent(heartbeatSubject, heartbeat("starting"));
   const timer = setInterval(() => {
-    events.publishEvent(heartbeatSubject, heartbeat("running")).catch((err: Error) => log.warn({ err }, "heartbeat failed"));
+    events
+      .publishEvent(heartbeatSubject, heartbeat("running"))
+      .catch((err: Error) => log.warn({ err }, "heartbeat failed"));
   }, config.heartbeatS * 1000);
   timer.unref();
 
@@ -112,7 +118,9 @@ export async function startRuntime(name: string, config: Readonly<BaseConfig>, d
     stopping ??= (async () => {
       isReady = false;
       clearInterval(timer);
-      await Promise.all([...subs].map((s) => s.unsubscribe().catch((err: Error) => log.warn({ err }, "unsubscribe"))));
+      await Promise.all(
+        [...subs].map((s) => s.unsubscribe().catch((err: Error) => log.warn({ err }, "unsubscribe"))),
+      );
       for (const fn of stopHooks) await fn();
       await events.publishEvent(heartbeatSubject, heartbeat("stopping")).catch(() => undefined);
       if (ownsBus) await bus.close();

@@ -19,7 +19,10 @@ export function subject(site: string, stream: string): string {
   const words = stream.split(".");
   for (const w of words) {
     if (!WORD.test(w)) {
-      throw new KitError("KIT_SUBJECT_INVALID", `stream '${stream}': each word must be [a-z0-9-], got '${w}'`);
+      throw new KitError(
+        "KIT_SUBJECT_INVALID",
+        `stream '${stream}': each word must be [a-z0-9-], got '${w}'`,
+      );
     }
   }
   return `rto.${site}.${stream}`;
