@@ -1,8 +1,10 @@
 /** services/kit: the shared runtime of every Steadfast service (a library, not a service). */
 export * from "./bus.js";
 export * from "./clock.js";
+export * from "./command-signing.js";
 export * from "./config.js";
 export * from "./connect.js";
+export * from "./control-gateway.js";
 export * from "./embedded.js";
 export * from "./envelope.js";
 export * from "./errors.js";
