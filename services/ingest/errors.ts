@@ -17,6 +17,8 @@ export const INGEST_ERROR_CODES = {
   INGEST_TIME_ZONE: "the configured time zone is not a valid IANA zone name",
   INGEST_SPARKPLUG_TOPIC: "an MQTT topic is not a Sparkplug B (spBv1.0) topic",
   INGEST_SPARKPLUG_PAYLOAD: "a Sparkplug B payload could not be decoded",
+  INGEST_SPARKPLUG_CONFIG: "Sparkplug B is enabled but no MQTT broker URL is configured for it",
+  INGEST_REPLAY_OPTIONS: "CSV replay was given neither a bus nor a callback, or a bad speed-up",
 } as const;
 
 export type IngestErrorCode = keyof typeof INGEST_ERROR_CODES;
