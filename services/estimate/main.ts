@@ -1,0 +1,14 @@
+/** Process entry of the estimate service: config from STEADFAST_CONFIG (file) and STEADFAST_* variables. */
+import { envOverrides, loadConfig, readConfigFile, runMain } from "../kit/index.js";
+import { type EstimateConfig, estimateConfigSchema } from "./config.js";
+import { start } from "./index.js";
+
+await runMain(() => {
+  const file = process.env.STEADFAST_CONFIG;
+  const config = loadConfig<EstimateConfig>(
+    estimateConfigSchema,
+    file ? readConfigFile(file) : {},
+    envOverrides(process.env),
+  );
+  return start(config);
+});
