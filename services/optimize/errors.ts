@@ -22,6 +22,8 @@ export const OPTIMIZE_ERROR_CODES = {
   OPTIMIZE_GRADIENT_ILL_CONDITIONED:
     "past operating points are too close to collinear to estimate a plant gradient",
   OPTIMIZE_GRADIENT_TOO_FEW_POINTS: "fewer than n+1 distinct steady-state operating points are available",
+  OPTIMIZE_INPUT_MISSING:
+    "an input the cycle needs is missing: a decision's setpoint tag or a disturbance without default is not in the snapshot",
 } as const;
 
 /** A code from {@link OPTIMIZE_ERROR_CODES}. */
