@@ -7,14 +7,14 @@ export default defineConfig({
       {
         test: {
           name: "unit",
-          include: ["services/**/*.unit.test.ts", "test/**/*.unit.test.ts", "scripts/**/*.unit.test.ts"],
+          include: ["services/**/*.unit.test.ts", "cli/**/*.unit.test.ts", "test/**/*.unit.test.ts", "scripts/**/*.unit.test.ts"],
           testTimeout: 30_000,
         },
       },
       {
         test: {
           name: "int",
-          include: ["services/**/*.int.test.ts", "test/**/*.int.test.ts"],
+          include: ["services/**/*.int.test.ts", "cli/**/*.int.test.ts", "test/**/*.int.test.ts"],
           testTimeout: 60_000,
           hookTimeout: 60_000,
           // Integration tests share two cores and real brokers; one file at a time keeps timing honest.
