@@ -1,156 +1,27 @@
 /**
- * The site-model document as it stands after schema validation (defaults filled in).
- * Mirrors schemas/site-model.schema.json field for field; replace with the generated type once
- * scripts/gen-types.ts emits one (the schema stays the truth).
+ * The site-model document as it stands after schema validation. The types are generated from
+ * schemas/site-model.schema.json (services/model/generated/site-model.ts), so the schema stays the
+ * one source of truth; this file only gives them the names the model code uses, and the defaults.
  */
+import type * as G from "./generated/site-model.js";
 
-/** `check` (default) verifies dimensional consistency; `ignore` skips it for one expression. */
-export type UnitsCheck = "check" | "ignore";
-
-export interface TagDocument {
-  id: string;
-  description?: string;
-  variable: string;
-  unit: string;
-  sigma: number;
-  range: { min: number; max: number };
-  maxRatePerS?: number;
-  frozenAfterS?: number;
-  staleAfterS?: number;
-  key?: boolean;
-  source?: { topic?: string; name: string; unit?: string; scale?: number; offset?: number };
-}
-
-export interface DecisionDocument {
-  symbol: string;
-  description?: string;
-  unit: string;
-  setpointTag: string;
-  min?: number;
-  max?: number;
-  initial?: number;
-  maxMovePerCycle?: number;
-  rampPerS?: number;
-  deadband?: number;
-}
-
-export interface ParameterDocument {
-  symbol: string;
-  description?: string;
-  unit: string;
-  initial: number;
-  min: number;
-  max: number;
-  maxChangePerCycle?: number;
-}
-
-export interface DisturbanceDocument {
-  symbol: string;
-  description?: string;
-  unit: string;
-  tag?: string;
-  default?: number;
-}
-
-export interface PriceDocument {
-  symbol: string;
-  description?: string;
-  unit: string;
-  default: number;
-}
-
-export interface ConstantDocument {
-  symbol: string;
-  description?: string;
-  unit: string;
-  value: number;
-}
-
-export interface BalanceDocument {
-  name: string;
-  description?: string;
-  terms: { tag: string; times?: string; coeff: number }[];
-}
-
-export interface UnknownDocument {
-  symbol: string;
-  description?: string;
-  unit: string;
-  initial: number;
-  min?: number;
-  max?: number;
-  scale?: number;
-}
-
-export interface EquationDocument {
-  name: string;
-  description?: string;
-  expression: string;
-  unit?: string;
-  units?: UnitsCheck;
-}
-
-export interface OutputDocument {
-  symbol: string;
-  description?: string;
-  unit: string;
-  expression: string;
-  units?: UnitsCheck;
-}
-
-export interface ConstraintDocument {
-  name: string;
-  description?: string;
-  expression: string;
-  kind: "hard" | "soft";
-  penalty?: number;
-  units?: UnitsCheck;
-}
-
-/** Steady-state detection policy (Cao & Rhinehart 1995 filter weights and the plant-wide verdict). */
-export interface SteadyStatePolicy {
-  lambda1: number;
-  lambda2: number;
-  lambda3: number;
-  rCritical: number;
-  keyTagFraction: number;
-  minSteadyS: number;
-  settleTimeS: number;
-  sampleIntervalS: number;
-}
-
-/** Setpoint validation policy. */
-export interface ValidationPolicy {
-  minImprovement: number;
-  maxDataAgeS: number;
-  maxFitChiSquareRatio: number;
-  requireApproval: boolean;
-  commandExpiryS: number;
-}
-
-export interface SiteModelDocument {
-  $schema?: string;
-  formatVersion?: 1;
-  site: { id: string; name: string; description?: string };
-  constants?: ConstantDocument[];
-  tags?: TagDocument[];
-  decisions?: DecisionDocument[];
-  parameters?: ParameterDocument[];
-  disturbances?: DisturbanceDocument[];
-  prices?: PriceDocument[];
-  balances?: BalanceDocument[];
-  model: { unknowns: UnknownDocument[]; equations: EquationDocument[]; outputs?: OutputDocument[] };
-  objective: {
-    sense: "max" | "min";
-    expression: string;
-    unit: string;
-    units?: UnitsCheck;
-    description?: string;
-  };
-  constraints?: ConstraintDocument[];
-  steadyState?: Partial<SteadyStatePolicy>;
-  validation?: Partial<ValidationPolicy>;
-}
+export type UnitsCheck = G.UnitsCheck;
+export type SiteModelDocument = G.SiteModelDocument;
+export type TagDocument = G.TagDocument;
+export type DecisionDocument = G.DecisionDocument;
+export type ParameterDocument = G.ParameterDocument;
+export type DisturbanceDocument = G.DisturbanceDocument;
+export type PriceDocument = G.PriceDocument;
+export type ConstantDocument = NonNullable<G.SiteModelDocument["constants"]>[number];
+export type BalanceDocument = G.BalanceDocument;
+export type UnknownDocument = G.UnknownDocument;
+export type EquationDocument = G.EquationDocument;
+export type OutputDocument = G.OutputDocument;
+export type ConstraintDocument = G.ConstraintDocument;
+/** Steady-state detection policy with its defaults filled in. */
+export type SteadyStatePolicy = Required<G.SteadyStatePolicyDocument>;
+/** Setpoint validation policy with its defaults filled in. */
+export type ValidationPolicy = Required<G.ValidationPolicyDocument>;
 
 /** Defaults of the policy blocks (also written in the schema as `default`). */
 export const STEADY_STATE_DEFAULTS: Readonly<SteadyStatePolicy> = Object.freeze({
