@@ -10,6 +10,7 @@
 import { spawnSync } from "node:child_process";
 import { performance } from "node:perf_hooks";
 import { type LmProblem, levenbergMarquardt } from "../services/estimate/lm.js";
+import { createRandom } from "../services/kit/random.js";
 import {
   loadNistSet,
   NIST_SET_NAMES,
@@ -17,17 +18,8 @@ import {
   significantDigits,
 } from "../test/reference/nist-strd/models.js";
 
-/** Seeded uniform generator (mulberry32) so the synthetic data are the same on every run. */
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+/** Seeded uniform numbers, so that every run sees the same data. */
+const mulberry32 = (seed: number): (() => number) => createRandom(seed).uniform;
 
 const M = 2000;
 const TRUE_P = [5, 1.3, 2, 0.15, 0.5, 2.1, 0.4, 0.3];

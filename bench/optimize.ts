@@ -7,6 +7,7 @@
  */
 import { spawnSync } from "node:child_process";
 import { performance } from "node:perf_hooks";
+import { createRandom } from "../services/kit/random.js";
 import {
   createHighsLp,
   type LpProblem,
@@ -17,17 +18,8 @@ import {
 import { solveNlp } from "../services/optimize/sqp.js";
 import { PLANT, sequentialProblem, simultaneousProblem } from "../test/fixtures/williams-otto.js";
 
-/** Seeded RNG (mulberry32) so that both sides see the same LPs. */
-function rng(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+/** Seeded uniform numbers, so that every run sees the same data. */
+const rng = (seed: number): (() => number) => createRandom(seed).uniform;
 
 interface RandomLp {
   n: number;

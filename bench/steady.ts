@@ -8,22 +8,15 @@
  * reproduced by Monte Carlo, CHECK-VALUES §3).
  */
 import { spawnSync } from "node:child_process";
+import { createRandom } from "../services/kit/random.js";
 import { createDetector, RFilterBank } from "../services/steady/detector.js";
+
+/** Seeded uniform numbers, so that every run sees the same data. */
+const mulberry32 = (seed: number): (() => number) => createRandom(seed).uniform;
 
 const TAGS = Number(process.argv[2] ?? 1000);
 const SAMPLES = Number(process.argv[3] ?? 20_000);
 const REPEATS = 5;
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 /** The shared deterministic test signal; the Python peer evaluates the same formula. */
 function signal(k: number, t: number): number {

@@ -3,21 +3,13 @@ import type { Bus } from "../services/kit/bus.js";
 import { type BaseConfig, loadConfig, serviceConfigSchema } from "../services/kit/config.js";
 import { silentLogger } from "../services/kit/log.js";
 import { connectMqtt } from "../services/kit/mqtt.js";
+import { createRandom } from "../services/kit/random.js";
 import { type Service, startRuntime } from "../services/kit/service.js";
 import { subject } from "../services/kit/subjects.js";
 import { mqttUrl, testSite, waitFor } from "./support/brokers.js";
 
-/** A seeded generator, so a failing run can be repeated. */
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
+/** Seeded uniform numbers, so that every run sees the same data. */
+const mulberry32 = (seed: number): (() => number) => createRandom(seed).uniform;
 
 function malformed(rand: () => number, i: number, site: string): Buffer {
   switch (i % 5) {

@@ -7,104 +7,28 @@
  * one-sided Jacobi SVD of the n×n factor), never by inverting JᵀJ: on Lanczos3 JᵀJ has a condition
  * number near 1e8 after equilibration (1e16 before), so an explicit inverse would keep few digits.
  */
+
+import {
+  chiSquareCdf,
+  chiSquareQuantile,
+  gammaP,
+  incompleteBeta,
+  lnGamma,
+  normalQuantile,
+  studentTCdf,
+  studentTQuantile as tQuantile,
+} from "../model/distributions.js";
 import { EstimateError } from "./errors.js";
 import { finiteDifferenceJacobian, householderQr, type LmProblem, weightRoots } from "./lm.js";
 
 const EPS = 2.220446049250313e-16;
 
-// Lanczos approximation, g = 7, 9 terms (the coefficients used by Numerical Recipes 3rd ed. §6.1 and
-// many libraries); relative error below 1e-15 for x > 0.
-const LANCZOS = [
-  0.99999999999980993, 676.5203681218851, -1259.1392167224028, 771.32342877765313, -176.61502916214059,
-  12.507343278686905, -0.13857109526572012, 9.9843695780195716e-6, 1.5056327351493116e-7,
-];
+// The distributions live in services/model (shared with reconcile); these re-exports keep the
+// estimator's public surface in one place.
+export { chiSquareCdf, incompleteBeta, lnGamma, normalQuantile, studentTCdf };
 
-/** ln Γ(x) for x > 0. */
-export function lnGamma(x: number): number {
-  if (x < 0.5) return Math.log(Math.PI / Math.sin(Math.PI * x)) - lnGamma(1 - x);
-  const z = x - 1;
-  let s = LANCZOS[0] as number;
-  for (let i = 1; i < 9; i++) s += (LANCZOS[i] as number) / (z + i);
-  const t = z + 7.5;
-  return 0.5 * Math.log(2 * Math.PI) + (z + 0.5) * Math.log(t) - t + Math.log(s);
-}
-
-/** Continued fraction for the incomplete beta (modified Lentz; Numerical Recipes §6.4). */
-function betaContinuedFraction(a: number, b: number, x: number): number {
-  const tiny = 1e-300;
-  let c = 1;
-  let d = 1 - ((a + b) * x) / (a + 1);
-  if (Math.abs(d) < tiny) d = tiny;
-  d = 1 / d;
-  let h = d;
-  for (let m = 1; m <= 10000; m++) {
-    const m2 = 2 * m;
-    let aa = (m * (b - m) * x) / ((a + m2 - 1) * (a + m2));
-    d = 1 + aa * d;
-    if (Math.abs(d) < tiny) d = tiny;
-    c = 1 + aa / c;
-    if (Math.abs(c) < tiny) c = tiny;
-    d = 1 / d;
-    h *= d * c;
-    aa = (-(a + m) * (a + b + m) * x) / ((a + m2) * (a + m2 + 1));
-    d = 1 + aa * d;
-    if (Math.abs(d) < tiny) d = tiny;
-    c = 1 + aa / c;
-    if (Math.abs(c) < tiny) c = tiny;
-    d = 1 / d;
-    const del = d * c;
-    h *= del;
-    if (Math.abs(del - 1) < 1e-16) break;
-  }
-  return h;
-}
-
-/** Regularized incomplete beta I_x(a, b), 0 ≤ x ≤ 1, a, b > 0. */
-export function incompleteBeta(x: number, a: number, b: number): number {
-  if (x <= 0) return 0;
-  if (x >= 1) return 1;
-  const front = Math.exp(lnGamma(a + b) - lnGamma(a) - lnGamma(b) + a * Math.log(x) + b * Math.log1p(-x));
-  if (x < (a + 1) / (a + b + 2)) return (front * betaContinuedFraction(a, b, x)) / a;
-  return 1 - (front * betaContinuedFraction(b, a, 1 - x)) / b;
-}
-
-/** Regularized lower incomplete gamma P(a, x), a > 0, x ≥ 0 (series or continued fraction, NR §6.2). */
-export function incompleteGammaP(a: number, x: number): number {
-  if (x <= 0) return 0;
-  const lnFront = -x + a * Math.log(x) - lnGamma(a);
-  if (x < a + 1) {
-    let term = 1 / a;
-    let sum = term;
-    for (let n = 1; n < 100000; n++) {
-      term *= x / (a + n);
-      sum += term;
-      if (Math.abs(term) < Math.abs(sum) * 1e-17) break;
-    }
-    return sum * Math.exp(lnFront);
-  }
-  return 1 - incompleteGammaQContinued(a, x, lnFront);
-}
-
-function incompleteGammaQContinued(a: number, x: number, lnFront: number): number {
-  const tiny = 1e-300;
-  let b = x + 1 - a;
-  let c = 1 / tiny;
-  let d = 1 / b;
-  let h = d;
-  for (let i = 1; i < 100000; i++) {
-    const an = -i * (i - a);
-    b += 2;
-    d = an * d + b;
-    if (Math.abs(d) < tiny) d = tiny;
-    c = b + an / c;
-    if (Math.abs(c) < tiny) c = tiny;
-    d = 1 / d;
-    const del = d * c;
-    h *= del;
-    if (Math.abs(del - 1) < 1e-16) break;
-  }
-  return Math.exp(lnFront) * h;
-}
+/** Regularized lower incomplete gamma P(a, x). */
+export const incompleteGammaP = gammaP;
 
 function checkProbability(p: number, dof: number) {
   if (!(p > 0 && p < 1) || !(dof > 0) || !Number.isFinite(dof)) {
@@ -115,101 +39,18 @@ function checkProbability(p: number, dof: number) {
   }
 }
 
-/** Student-t cumulative distribution P(T ≤ t) with `dof` degrees of freedom. */
-export function studentTCdf(t: number, dof: number): number {
-  const tail = 0.5 * incompleteBeta(dof / (dof + t * t), dof / 2, 0.5);
-  return t > 0 ? 1 - tail : tail;
-}
-
-/** Student-t density. */
-function studentTPdf(t: number, dof: number): number {
-  return Math.exp(
-    lnGamma((dof + 1) / 2) -
-      lnGamma(dof / 2) -
-      0.5 * Math.log(dof * Math.PI) -
-      ((dof + 1) / 2) * Math.log1p((t * t) / dof),
-  );
-}
-
-/**
- * Solves F(x) = target for an increasing F on [lo, ∞) by Newton steps kept inside a bracket, bisecting
- * when Newton leaves it. `upper` is the upper-tail function (1 − F, computed directly to keep precision
- * in the tail); `pdf` its negative derivative.
- */
-function invertUpperTail(
-  upper: (x: number) => number,
-  pdf: (x: number) => number,
-  q: number,
-  start: number,
-  lo: number,
-) {
-  let a = lo;
-  let b = Math.max(start, lo + 1);
-  while (upper(b) > q) {
-    a = b;
-    b *= 2;
-    if (b > 1e300) return Number.POSITIVE_INFINITY;
-  }
-  let x = Math.min(Math.max(start, a), b);
-  for (let i = 0; i < 200; i++) {
-    const f = upper(x) - q;
-    if (f > 0) a = x;
-    else b = x;
-    const d = pdf(x);
-    let next = d > 0 ? x + f / d : Number.NaN;
-    if (!(next > a && next < b)) next = 0.5 * (a + b);
-    if (Math.abs(next - x) <= 4 * EPS * Math.abs(next) || b - a <= 4 * EPS * Math.abs(b)) return next;
-    x = next;
-  }
-  return x;
-}
-
-/** Standard normal quantile (Acklam's rational approximation, refined by Newton on erfc). */
-export function normalQuantile(p: number): number {
-  checkProbability(p, 1);
-  if (p === 0.5) return 0;
-  const q = Math.min(p, 1 - p);
-  const upperTail = (z: number) => 0.5 * (1 - incompleteGammaP(0.5, (z * z) / 2)); // for z ≥ 0
-  const pdf = (z: number) => Math.exp(-0.5 * z * z) / Math.sqrt(2 * Math.PI);
-  const start = Math.sqrt(-2 * Math.log(q)) - 0.8;
-  const z = invertUpperTail(upperTail, pdf, q, Math.max(start, 0.1), 0);
-  return p < 0.5 ? -z : z;
-}
-
-/**
- * Student-t quantile: the t with P(T ≤ t) = p for `dof` degrees of freedom (dof may be fractional).
- * Closed forms for dof 1 and 2; otherwise the incomplete-beta tail inverted by safeguarded Newton steps.
- */
+/** Student-t quantile P(T ≤ t) = p; throws ESTIMATE_PROBABILITY_RANGE outside 0 < p < 1, dof > 0. */
 export function studentTQuantile(p: number, dof: number): number {
   checkProbability(p, dof);
-  if (p === 0.5) return 0;
-  const q = Math.min(p, 1 - p);
-  let t: number;
-  if (dof === 1) t = Math.tan(Math.PI * (0.5 - q));
-  else if (dof === 2) t = Math.sqrt(2 / (4 * q * (1 - q)) - 2);
-  else {
-    const upperTail = (x: number) => 0.5 * incompleteBeta(dof / (dof + x * x), dof / 2, 0.5);
-    t = invertUpperTail(upperTail, (x) => studentTPdf(x, dof), q, normalQuantile(1 - q), 0);
-  }
-  return p < 0.5 ? -t : t;
+  return tQuantile(p, dof);
 }
 
-/** Chi-square cumulative distribution P(X ≤ x) with `dof` degrees of freedom. */
-export function chiSquareCdf(x: number, dof: number): number {
-  return incompleteGammaP(dof / 2, x / 2);
-}
-
-/** Chi-square quantile: the x with P(X ≤ x) = p (Wilson–Hilferty start, safeguarded Newton). */
-export function chiSquareQuantile(p: number, dof: number): number {
+/** Chi-square quantile P(X ≤ x) = p; throws ESTIMATE_PROBABILITY_RANGE outside 0 < p < 1, dof > 0. */
+export function chiSquareQuantileChecked(p: number, dof: number): number {
   checkProbability(p, dof);
-  const k = dof;
-  const upper = (x: number) => 1 - incompleteGammaP(k / 2, x / 2);
-  const pdf = (x: number) =>
-    x <= 0 ? 0 : Math.exp((k / 2 - 1) * Math.log(x) - x / 2 - (k / 2) * Math.LN2 - lnGamma(k / 2));
-  const z = normalQuantile(p);
-  const wh = k * (1 - 2 / (9 * k) + z * Math.sqrt(2 / (9 * k))) ** 3;
-  return invertUpperTail(upper, pdf, 1 - p, Math.max(wh, 1e-3), 0);
+  return chiSquareQuantile(p, dof);
 }
+export { chiSquareQuantileChecked as chiSquareQuantile };
 
 /** Codes of identifiability warnings. */
 export const STAT_WARNING_CODES = {

@@ -6,8 +6,9 @@
  *
  * Pure: time and the random source come in as arguments.
  */
+
+import type { Random } from "../kit/random.js";
 import { PlantSimError } from "./errors.js";
-import type { Random } from "./random.js";
 
 /** The kinds of fault. */
 export const FAULT_KINDS = [

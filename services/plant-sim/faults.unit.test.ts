@@ -1,7 +1,7 @@
 import { describe, expect, test } from "vitest";
+import { createRandom } from "../kit/random.js";
 import { PlantSimError } from "./errors.js";
 import { createFaultInjector, type FaultSpec, type MeasuredValue } from "./faults.js";
-import { createRandom } from "./random.js";
 
 const SIGMA = 0.2;
 const sigmaOf = () => SIGMA;

@@ -9,13 +9,14 @@
  * interval first, and the states are then integrated with the decisions interpolated linearly
  * between the interval's end values (a first-order hold), the disturbance noise likewise.
  */
+
+import { createRandom, type Random } from "../kit/random.js";
 import type { SiteModel } from "../model/index.js";
 import { solveAtPoint } from "../model/index.js";
 import { affineConversion, newMath, parseUnit, type UnitInfo } from "../model/units.js";
 import { createDynamics, type Dynamics, type StateForm } from "./dynamics.js";
 import { PlantSimError } from "./errors.js";
 import { createDopri5, type Dopri5 } from "./integrator.js";
-import { createRandom, type Random } from "./random.js";
 import { createLoop, type Loop, type LoopSpec, type LoopState } from "./regulatory.js";
 
 /** A slow drift of a parameter or constant (e.g. a heat-transfer coefficient fouling over weeks). */

@@ -4,11 +4,12 @@
  * faults (faults.ts). `step(dtS)` runs any stretch of simulated time without a broker or a clock
  * and returns the batches that fell due, so a test can run a simulated week in seconds.
  */
+
+import { createRandom } from "../kit/random.js";
 import type { SiteModel } from "../model/index.js";
 import { PlantSimError } from "./errors.js";
 import { createFaultInjector, type FaultInjector, type FaultSpec, type MeasuredValue } from "./faults.js";
 import { createPlant, type Plant, type PlantOptions } from "./plant.js";
-import { createRandom } from "./random.js";
 
 /** Options of the measuring plant. */
 export interface SimulatorOptions extends PlantOptions {

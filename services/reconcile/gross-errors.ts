@@ -7,8 +7,9 @@
  * "Detection of gross errors in process data", AIChE J. 28(5) (maximum-power measurement test);
  * Šidák, Z. (1967), JASA 62(318) (the correction α' = 1 − (1 − α)^(1/n)).
  */
+
+import { chiSquareCritical, chiSquareSurvival, sidakNormalCritical } from "../model/distributions.js";
 import type { CoreSolution } from "./reconcile.js";
-import { chiSquareCritical, chiSquareSurvival, sidakNormalCritical } from "./stats.js";
 
 /** Global test: γ = rᵀ(A·V·Aᵀ)⁻¹r against χ²(dof). */
 export interface GlobalTest {

@@ -1,7 +1,9 @@
 /**
- * The distribution functions the gross-error tests need, written here so the tests' critical values do
- * not depend on a statistics package: log-gamma, the regularized incomplete gamma functions, the
- * chi-square and normal distributions and their quantiles, and the Šidák correction.
+ * Distribution functions shared by the stages (gross-error tests in reconcile, confidence intervals
+ * and fit gates in estimate), written here so that critical values do not depend on a statistics
+ * package: log-gamma, the regularized incomplete gamma and beta functions, the chi-square, normal and
+ * Student-t distributions and their quantiles, and the Šidák correction. Invalid arguments throw
+ * RangeError (a caller's bug, not a data condition).
  */
 
 const EPS = 2.220446049250313e-16;
@@ -215,4 +217,109 @@ export function sidakAlpha(alpha: number, n: number): number {
 /** Two-sided standard-normal critical value for n tests at family-wise level alpha (Šidák). */
 export function sidakNormalCritical(alpha: number, n: number): number {
   return -lowerNormalQuantile(sidakAlpha(alpha, n) / 2);
+}
+
+/** Continued fraction for the incomplete beta (modified Lentz; Numerical Recipes 3rd ed. §6.4). */
+function betaContinuedFraction(a: number, b: number, x: number): number {
+  let c = 1;
+  let d = 1 - ((a + b) * x) / (a + 1);
+  if (Math.abs(d) < TINY) d = TINY;
+  d = 1 / d;
+  let h = d;
+  for (let m = 1; m <= 10000; m++) {
+    const m2 = 2 * m;
+    let aa = (m * (b - m) * x) / ((a + m2 - 1) * (a + m2));
+    d = 1 + aa * d;
+    if (Math.abs(d) < TINY) d = TINY;
+    c = 1 + aa / c;
+    if (Math.abs(c) < TINY) c = TINY;
+    d = 1 / d;
+    h *= d * c;
+    aa = (-(a + m) * (a + b + m) * x) / ((a + m2) * (a + m2 + 1));
+    d = 1 + aa * d;
+    if (Math.abs(d) < TINY) d = TINY;
+    c = 1 + aa / c;
+    if (Math.abs(c) < TINY) c = TINY;
+    d = 1 / d;
+    const del = d * c;
+    h *= del;
+    if (Math.abs(del - 1) < 1e-16) break;
+  }
+  return h;
+}
+
+/** Regularized incomplete beta I_x(a, b), 0 ≤ x ≤ 1, a, b > 0. */
+export function incompleteBeta(x: number, a: number, b: number): number {
+  if (x <= 0) return 0;
+  if (x >= 1) return 1;
+  const front = Math.exp(lnGamma(a + b) - lnGamma(a) - lnGamma(b) + a * Math.log(x) + b * Math.log1p(-x));
+  if (x < (a + 1) / (a + b + 2)) return (front * betaContinuedFraction(a, b, x)) / a;
+  return 1 - (front * betaContinuedFraction(b, a, 1 - x)) / b;
+}
+
+/** Student-t cumulative distribution P(T ≤ t) with `dof` degrees of freedom. */
+export function studentTCdf(t: number, dof: number): number {
+  const tail = 0.5 * incompleteBeta(dof / (dof + t * t), dof / 2, 0.5);
+  return t > 0 ? 1 - tail : tail;
+}
+
+function studentTPdf(t: number, dof: number): number {
+  return Math.exp(
+    lnGamma((dof + 1) / 2) -
+      lnGamma(dof / 2) -
+      0.5 * Math.log(dof * Math.PI) -
+      ((dof + 1) / 2) * Math.log1p((t * t) / dof),
+  );
+}
+
+/**
+ * Solves upper(x) = q for a decreasing upper tail on [lo, ∞) by Newton steps kept inside a bracket,
+ * bisecting when Newton leaves it; the tail is computed directly to keep precision far out.
+ */
+function invertUpperTail(
+  upper: (x: number) => number,
+  pdf: (x: number) => number,
+  q: number,
+  start: number,
+  lo: number,
+) {
+  let a = lo;
+  let b = Math.max(start, lo + 1);
+  while (upper(b) > q) {
+    a = b;
+    b *= 2;
+    if (b > 1e300) return Number.POSITIVE_INFINITY;
+  }
+  let x = Math.min(Math.max(start, a), b);
+  for (let i = 0; i < 200; i++) {
+    const f = upper(x) - q;
+    if (f > 0) a = x;
+    else b = x;
+    const d = pdf(x);
+    let next = d > 0 ? x + f / d : Number.NaN;
+    if (!(next > a && next < b)) next = 0.5 * (a + b);
+    if (Math.abs(next - x) <= 4 * EPS * Math.abs(next) || b - a <= 4 * EPS * Math.abs(b)) return next;
+    x = next;
+  }
+  return x;
+}
+
+/**
+ * Student-t quantile: the t with P(T ≤ t) = p for `dof` degrees of freedom (dof may be fractional).
+ * Closed forms for dof 1 and 2; otherwise the incomplete-beta tail inverted by safeguarded Newton steps.
+ */
+export function studentTQuantile(p: number, dof: number): number {
+  if (!(p > 0 && p < 1) || !(dof > 0) || !Number.isFinite(dof)) {
+    throw new RangeError(`studentTQuantile needs 0 < p < 1 and a positive finite dof (p=${p}, dof=${dof})`);
+  }
+  if (p === 0.5) return 0;
+  const q = Math.min(p, 1 - p);
+  let t: number;
+  if (dof === 1) t = Math.tan(Math.PI * (0.5 - q));
+  else if (dof === 2) t = Math.sqrt(2 / (4 * q * (1 - q)) - 2);
+  else {
+    const upperTail = (x: number) => 0.5 * incompleteBeta(dof / (dof + x * x), dof / 2, 0.5);
+    t = invertUpperTail(upperTail, (x) => studentTPdf(x, dof), q, -lowerNormalQuantile(q), 0);
+  }
+  return p < 0.5 ? -t : t;
 }

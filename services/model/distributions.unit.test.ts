@@ -13,7 +13,7 @@ import {
   normalQuantile,
   sidakAlpha,
   sidakNormalCritical,
-} from "./stats.js";
+} from "./distributions.js";
 
 describe("chi-square critical values", () => {
   // Source: NIST/SEMATECH e-Handbook of Statistical Methods (2012), §1.3.6.7.4, upper critical values
