@@ -5,7 +5,7 @@
  * configured so that they cannot drop messages silently.
  */
 import { type ChildProcess, execFileSync, spawn } from "node:child_process";
-import { chmodSync, mkdtempSync, rmSync, writeFileSync } from "node:fs";
+import { chmodSync, mkdtempSync, readFileSync, rmSync, writeFileSync } from "node:fs";
 import { createConnection, createServer } from "node:net";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
@@ -251,4 +251,103 @@ export async function waitFor(cond: () => boolean, ms = 5000, stepMs = 10): Prom
     await new Promise((r) => setTimeout(r, stepMs));
   }
   return cond();
+}
+
+/**
+ * Mosquitto on a free port with the caller's configuration lines (e.g. password_file, acl_file).
+ * The listener, store and `max_queued_messages 0` are added here; `files` are written into the
+ * broker's own directory first, and `{dir}` in a line stands for that directory.
+ */
+export async function startMosquittoWithConfig(
+  lines: string[],
+  files: Record<string, string> = {},
+): Promise<OwnBroker & { dir: string }> {
+  if (!hasBinary("mosquitto"))
+    throw new KitError("KIT_BROKER_UNAVAILABLE", "no mosquitto binary on this machine");
+  const dir = mkdtempSync(join(tmpdir(), "sf-mosq-"));
+  chmodSync(dir, 0o777);
+  for (const [name, text] of Object.entries(files)) {
+    writeFileSync(join(dir, name), text);
+    // Mosquitto runs as the 'mosquitto' user once started as root: it must read what we wrote.
+    chmodSync(join(dir, name), 0o644);
+  }
+  const port = await freePort();
+  const conf = join(dir, "mosquitto.conf");
+  writeFileSync(
+    conf,
+    [
+      `listener ${port} 127.0.0.1`,
+      "persistence true",
+      `persistence_location ${dir}/`,
+      "max_queued_messages 0",
+      "max_inflight_messages 100",
+      "log_dest none",
+      ...lines.map((l) => l.replaceAll("{dir}", dir)),
+      "",
+    ].join("\n"),
+  );
+  let proc: ChildProcess;
+  const launch = async () => {
+    proc = spawn(binaryPath("mosquitto"), ["-c", conf], { stdio: "ignore" });
+    await waitReachable(port);
+  };
+  await launch();
+  return {
+    url: `mqtt://127.0.0.1:${port}`,
+    port,
+    dir,
+    restart: async () => {
+      await stopProcess(proc);
+      await launch();
+    },
+    stop: async () => {
+      await stopProcess(proc);
+      rmSync(dir, { recursive: true, force: true });
+    },
+  };
+}
+
+/**
+ * nats-server (JetStream on, own store) on a free port with a configuration file, and `env` added
+ * to its environment (for `$VARIABLE` references such as passwords). It runs a copy of the file
+ * whose `store_dir` is the broker's own directory and without its `http` monitor line; the port
+ * on the command line overrides the file's `listen`.
+ */
+export async function startNatsServerWithConfig(
+  confPath: string,
+  env: Record<string, string> = {},
+): Promise<OwnBroker> {
+  if (!hasBinary("nats-server"))
+    throw new KitError("KIT_BROKER_UNAVAILABLE", "no nats-server binary on this machine");
+  const dir = mkdtempSync(join(tmpdir(), "sf-nats-"));
+  const port = await freePort();
+  // nats-server refuses -sd next to a store_dir in the file, so a copy points store_dir at our
+  // directory and drops the fixed http monitor port; everything else is the file as shipped.
+  const text = readFileSync(confPath, "utf8")
+    .replace(/store_dir:\s*\S+/g, `store_dir: "${join(dir, "js")}"`)
+    .replace(/^\s*http:.*$/gm, "");
+  const conf = join(dir, "nats.conf");
+  writeFileSync(conf, text);
+  const jsArgs = /jetstream\s*[{:]/.test(text) ? [] : ["-js", "-sd", join(dir, "js")];
+  let proc: ChildProcess;
+  const launch = async () => {
+    proc = spawn(binaryPath("nats-server"), ["-c", conf, "-a", "127.0.0.1", "-p", String(port), ...jsArgs], {
+      stdio: "ignore",
+      env: { ...process.env, ...env },
+    });
+    await waitReachable(port);
+  };
+  await launch();
+  return {
+    url: `nats://127.0.0.1:${port}`,
+    port,
+    restart: async () => {
+      await stopProcess(proc);
+      await launch();
+    },
+    stop: async () => {
+      await stopProcess(proc);
+      rmSync(dir, { recursive: true, force: true });
+    },
+  };
 }

@@ -21,6 +21,82 @@ export interface EventEnvelope {
 }
 
 /**
+ * Signed setpoints for one process unit, published by validate on rto.<site>.command and checked by the receiving control gateway (services/kit/control-gateway.ts). The signature is HMAC-SHA256 over the RFC 8785 canonical JSON of this object without its 'signature' member. Times are Unix epoch milliseconds.
+ */
+export interface SetpointCommand {
+  /**
+   * Whom the command is addressed to; a gateway refuses a command for another site or unit.
+   */
+  target: {
+    site: string;
+    /**
+     * Process unit id, e.g. 'R-1'.
+     */
+    unit: string;
+  };
+  /**
+   * Per-site command sequence number, 1, 2, 3, …; the gateway refuses any seq not above the last it accepted.
+   */
+  seq: number;
+  /**
+   * When validate signed the command, epoch ms.
+   */
+  issuedAt: number;
+  /**
+   * After this instant (epoch ms) the command must not be applied.
+   */
+  expiresAt: number;
+  /**
+   * Id of the shared HMAC key that signed the command (keys rotate by id).
+   */
+  keyId: string;
+  /**
+   * How the command came about: sent on its own in closed loop, or approved by an operator in advisory mode.
+   */
+  mode: "closed-loop" | "advisory-approved";
+  proposalId: string;
+  cycleId: string;
+  /**
+   * @minItems 1
+   * @maxItems 50
+   */
+  setpoints: [CommandSetpoint, ...CommandSetpoint[]];
+  /**
+   * The operator's approval; required when mode is advisory-approved.
+   */
+  approvedBy?: {
+    user: string;
+    /**
+     * When the operator approved, epoch ms.
+     */
+    at: number;
+    reason?: string;
+  };
+  signature: {
+    alg: "HMAC-SHA256";
+    /**
+     * The 32-byte MAC as 64 hex digits or as padded base64 (44 characters).
+     */
+    value: string;
+  };
+}
+export interface CommandSetpoint {
+  /**
+   * Setpoint tag, ISA-5.1 style (e.g. TIC-101.SP).
+   */
+  tag: string;
+  /**
+   * Target value in 'unit'.
+   */
+  value: number;
+  unit: string;
+  /**
+   * Requested ramp rate toward the target, in 'unit' per second; absent means the gateway's own rate (or a step when it has none).
+   */
+  rampPerS?: number;
+}
+
+/**
  * Progress of one RTO cycle (the envelope's cycleid names it): opened, a stage done, aborted with the reason, an alarm, closed.
  */
 export interface CycleStatus {
@@ -151,12 +227,1185 @@ export interface TagValue {
     | "clock-skew";
 }
 
+export type EpochMs = number;
+/**
+ * @maxItems 200
+ */
+export type ModelNotes = {
+  code: string;
+  message: string;
+}[];
+
+/**
+ * The outcome of one parameter estimation, published by estimate on rto.<site>.model (and retained on rto.<site>.state.model): the fitted adjustable parameters with standard deviation and confidence interval (weighted Levenberg–Marquardt on reconciled values), the acceptance verdict with its reasons, the fit quality, and the parameter set now in force (the previous one when the estimate was rejected or failed). Every parameter value is in its own 'unit'; residuals are in the unit of the model symbol the tag measures. Confidence intervals are value ± z·sd with z the normal quantile at fit.confidence (the weights are the measurements' true 1/σ²). Rejection reasons about the whole fit are in 'reasons', those about one parameter in that parameter's 'reasons'.
+ */
+export interface ModelUpdate {
+  /**
+   * accepted: the new values are in force; rejected: fitted but an acceptance rule failed; failed: no fit could be made; no-parameters: the site declares none to fit.
+   */
+  status: "accepted" | "rejected" | "failed" | "no-parameters";
+  accepted: boolean;
+  window: {
+    /**
+     * Reconciled snapshots fitted together.
+     */
+    snapshots: number;
+    /**
+     * @maxItems 100
+     */
+    reconciledIds: string[];
+    startMs: EpochMs | null;
+    endMs: EpochMs | null;
+  };
+  /**
+   * @maxItems 200
+   */
+  parameters: ModelParameter[];
+  /**
+   * Fit quality; null when no fit was made.
+   */
+  fit: ModelFit | null;
+  /**
+   * Correlation matrix of the fitted parameters (order of 'parameters' with fitted true); empty without statistics.
+   *
+   * @maxItems 50
+   */
+  correlation: number[][];
+  /**
+   * Model minus reconciled value at the fitted parameters, per fitted tag and snapshot.
+   *
+   * @maxItems 5000
+   */
+  residuals: {
+    tag: string;
+    /**
+     * Index in window.reconciledIds.
+     */
+    snapshot: number;
+    unit: string;
+    reconciled: number;
+    predicted: number;
+    /**
+     * The weight's standard deviation.
+     */
+    sd: number;
+    /**
+     * (predicted − reconciled) / sd.
+     */
+    z: number;
+  }[];
+  reasons: ModelNotes;
+  warnings: ModelNotes;
+}
+export interface ModelParameter {
+  symbol: string;
+  unit: string;
+  /**
+   * The parameter was adjusted in this fit (false: held at 'previous').
+   */
+  fitted: boolean;
+  /**
+   * Fitted value, or null when not fitted.
+   */
+  value: number | null;
+  /**
+   * Standard error of the fitted value.
+   */
+  sd: number | null;
+  /**
+   * Lower end of the confidence interval.
+   */
+  ciLower: number | null;
+  /**
+   * Upper end of the confidence interval.
+   */
+  ciUpper: number | null;
+  /**
+   * The value in force before this estimate.
+   */
+  previous: number;
+  /**
+   * The value in force after this estimate.
+   */
+  inForce: number;
+  /**
+   * The fitted value is now in force.
+   */
+  accepted: boolean;
+  /**
+   * The fitted value sits on the parameter's min or max.
+   */
+  atBound: boolean;
+  reasons: ModelNotes;
+}
+export interface ModelFit {
+  converged: boolean;
+  /**
+   * The solver's stopping rule.
+   */
+  reason: string;
+  iterations: number;
+  /**
+   * Model evaluations (steady-state solves).
+   */
+  evaluations: number;
+  /**
+   * Number of residuals m.
+   */
+  residuals: number;
+  /**
+   * m − number of fitted parameters.
+   */
+  dof: number;
+  /**
+   * Σ ((predicted − reconciled)/sd)².
+   */
+  weightedRss: number;
+  /**
+   * The chi-square quantile the fit was judged against, or null when the gate is off or dof ≤ 0.
+   */
+  chiSquareLimit: number | null;
+  confidence: number;
+  /**
+   * Of the column-equilibrated weighted Jacobian; null when infinite (rank deficient).
+   */
+  conditionNumber: number | null;
+  jacobian: "analytic" | "finite-difference";
+}
+
+/**
+ * An operator's answer to a validated proposal waiting in advisory mode, published on rto.<site>.operator.approval. proposalId is the id of the rto.proposal.v1 event. A rejection needs a reason. validate ignores an answer to a proposal that is unknown, superseded by a newer one, or past its approval expiry, and says so on the cycle stream.
+ */
+export interface OperatorApproval {
+  proposalId: string;
+  decision: "approve" | "reject";
+  user: string;
+  reason?: string;
+  /**
+   * When the operator decided, epoch ms.
+   */
+  at: number;
+}
+
+/**
+ * The loop's operating mode. An operator or engineer asks for a mode on rto.<site>.operator.mode; validate answers with the mode in force as retained state on rto.<site>.state.mode (with 'accepted' false and the reason when it refused the request). off: observe only, no command; advisory: each validated proposal waits for an rto.operator-approval.v1; closed-loop: validated commands go out on their own. 'overrides', when present, replaces the engineer-set overrides in force (a per-setpoint hold or tighter bounds); absent keeps them. A mode event also re-arms dispatch after a readback alarm.
+ */
+export interface OperatorMode {
+  mode: "off" | "advisory" | "closed-loop";
+  /**
+   * Who asked for the mode (or 'validate' for its own state).
+   */
+  user: string;
+  /**
+   * Why the mode was asked for or kept.
+   */
+  reason: string;
+  /**
+   * When the mode was asked for (request) or took effect (state), epoch ms.
+   */
+  at?: number;
+  /**
+   * State only: false when validate refused the last request and kept the mode shown.
+   */
+  accepted?: boolean;
+  /**
+   * Engineer-set overrides by setpoint tag; an empty array clears them.
+   *
+   * @maxItems 200
+   */
+  overrides?: SetpointOverride[];
+}
+export interface SetpointOverride {
+  /**
+   * The decision's setpoint tag.
+   */
+  tag: string;
+  /**
+   * True: the setpoint must not move.
+   */
+  hold?: boolean;
+  /**
+   * Tighter lower bound, the decision's unit.
+   */
+  min?: number;
+  /**
+   * Tighter upper bound, the decision's unit.
+   */
+  max?: number;
+  note?: string;
+}
+
+/**
+ * A demo-only control event for the simulated plant (services/plant-sim), published on rto.<site>.plant-control: inject sensor or link faults, clear them, or reset a trip. Times are simulated seconds. A real plant never listens to this stream.
+ */
+export interface PlantControl {
+  /**
+   * inject: add 'faults'; clear: remove the faults of 'tag' (all faults when absent); reset-trip: clear a plant trip so setpoints are accepted again.
+   */
+  action: "inject" | "clear" | "reset-trip";
+  /**
+   * @minItems 1
+   * @maxItems 50
+   */
+  faults?: [PlantFault, ...PlantFault[]];
+  /**
+   * For clear: the tag whose faults are removed; '*' for link faults (lost-connection).
+   */
+  tag?: string;
+  /**
+   * Why, for the log.
+   */
+  note?: string;
+}
+export interface PlantFault {
+  /**
+   * stuck: value frozen; spike: one outlier; drift: a ramp added; bias: a constant offset; dropout: tag missing from batches; noise-burst: sigma times 'factor'; lost-connection: no batches at all.
+   */
+  kind: "stuck" | "spike" | "drift" | "bias" | "dropout" | "noise-burst" | "lost-connection";
+  /**
+   * Tag id; required for every kind but lost-connection.
+   */
+  tag?: string;
+  /**
+   * Delay from receipt to the start, simulated seconds. Default 0.
+   */
+  startInS?: number;
+  /**
+   * Length, simulated seconds; absent means until cleared.
+   */
+  durationS?: number;
+  /**
+   * spike and bias: offset in the tag's unit (defaults 20 and 10 sigma).
+   */
+  magnitude?: number;
+  /**
+   * drift: ramp in the tag's unit per simulated second (default sigma per minute).
+   */
+  ratePerS?: number;
+  /**
+   * noise-burst: multiplier of the tag's sigma (default 5).
+   */
+  factor?: number;
+}
+
+/**
+ * The prices in force at a site from 'effectiveFrom' on, published on rto.<site>.prices (retained: the site's current prices). Symbols are the site model's price symbols; each symbol appears once.
+ */
+export interface Prices {
+  /**
+   * From when these prices hold, epoch ms.
+   */
+  effectiveFrom: number;
+  /**
+   * When the source expects the next change, epoch ms; absent when none is scheduled.
+   */
+  nextChangeAt?: number;
+  /**
+   * @minItems 1
+   * @maxItems 50
+   */
+  prices: [
+    {
+      /**
+       * A price symbol of the site model: a letter, then letters, digits or underscores.
+       */
+      symbol: string;
+      /**
+       * Price in 'unit'.
+       */
+      value: number;
+      /**
+       * e.g. USD/kg, USD/kWh.
+       */
+      unit: string;
+    },
+    ...{
+      /**
+       * A price symbol of the site model: a letter, then letters, digits or underscores.
+       */
+      symbol: string;
+      /**
+       * Price in 'unit'.
+       */
+      value: number;
+      /**
+       * e.g. USD/kg, USD/kWh.
+       */
+      unit: string;
+    }[]
+  ];
+  /**
+   * Where the prices came from, e.g. 'market-schedule' or a feed name.
+   */
+  source: string;
+}
+
+/**
+ * The optimizer's proposed setpoints for one RTO cycle (the envelope's cycleid), published by optimize on rto.<site>.proposal: per decision the current and proposed value with the bounds used this cycle, the predicted objective at the proposal and at the current operation, the constraints with their values and shadow prices, the active set, the KKT residual, the solver's account and the plant–model mismatch correction in force. Values are in the site model's units, named beside each quantity. Shadow prices are the change of the optimal objective per unit relaxation of a limit (g ≤ δ, or a bound moved outward), in the objective's own sense: for a maximized profit a binding limit's shadow price is ≥ 0.
+ */
+export interface Proposal {
+  /**
+   * optimal: solved, every constraint met; soft-violated: solved, but a soft constraint is violated (its penalty was cheaper than meeting it).
+   */
+  status: "optimal" | "soft-violated";
+  /**
+   * sequential: decisions as variables, the model solved inside; simultaneous: model equations as equality constraints; lp: the site model is linear and was solved as an LP.
+   */
+  formulation: "sequential" | "simultaneous" | "lp";
+  /**
+   * @minItems 1
+   * @maxItems 500
+   */
+  setpoints: [
+    {
+      /**
+       * The decision's model symbol.
+       */
+      decision: string;
+      /**
+       * The setpoint tag.
+       */
+      tag: string;
+      unit: string;
+      /**
+       * Value at the current operation (from the snapshot), 'unit'.
+       */
+      current: number;
+      /**
+       * Proposed setpoint, 'unit'.
+       */
+      proposed: number;
+      /**
+       * Lower bound used this cycle, 'unit'.
+       */
+      lower: number;
+      /**
+       * Upper bound used this cycle, 'unit'.
+       */
+      upper: number;
+      /**
+       * Which limit set the lower bound.
+       */
+      lowerFrom: "bound" | "move-limit";
+      /**
+       * Which limit set the upper bound.
+       */
+      upperFrom: "bound" | "move-limit";
+    },
+    ...{
+      /**
+       * The decision's model symbol.
+       */
+      decision: string;
+      /**
+       * The setpoint tag.
+       */
+      tag: string;
+      unit: string;
+      /**
+       * Value at the current operation (from the snapshot), 'unit'.
+       */
+      current: number;
+      /**
+       * Proposed setpoint, 'unit'.
+       */
+      proposed: number;
+      /**
+       * Lower bound used this cycle, 'unit'.
+       */
+      lower: number;
+      /**
+       * Upper bound used this cycle, 'unit'.
+       */
+      upper: number;
+      /**
+       * Which limit set the lower bound.
+       */
+      lowerFrom: "bound" | "move-limit";
+      /**
+       * Which limit set the upper bound.
+       */
+      upperFrom: "bound" | "move-limit";
+    }[]
+  ];
+  /**
+   * The model's objective as corrected for mismatch (bias or modifiers), without soft-constraint penalties.
+   */
+  objective: {
+    sense: "max" | "min";
+    unit: string;
+    /**
+     * Predicted at the current operation, 'unit'.
+     */
+    current: number;
+    /**
+     * Predicted at the proposal, 'unit'.
+     */
+    proposed: number;
+    /**
+     * proposed − current, 'unit'.
+     */
+    change: number;
+  };
+  /**
+   * Every constraint of the site model at the proposal.
+   *
+   * @maxItems 500
+   */
+  constraints: {
+    name: string;
+    kind: "hard" | "soft";
+    /**
+     * le: g ≤ 0; eq: g = 0, with g = lhs − rhs (rhs − lhs for ≥).
+     */
+    sense: "le" | "eq";
+    /**
+     * g at the proposal (corrected for mismatch), in the constraint's unit.
+     */
+    value: number;
+    /**
+     * The constraint's unit when it can be read from its expression.
+     */
+    unit?: string;
+    active: boolean;
+    /**
+     * ∂objective* /∂δ for g ≤ δ (g = δ), 'shadowPriceUnit'.
+     */
+    shadowPrice: number;
+    shadowPriceUnit: string;
+    /**
+     * Soft constraints only: max(g, 0) (|g| for eq), constraint unit.
+     */
+    violation?: number;
+  }[];
+  /**
+   * Active constraints and bounds by name, with their shadow prices.
+   *
+   * @maxItems 1000
+   */
+  active: {
+    name: string;
+    kind: "constraint" | "bound" | "move-limit" | "unknown-bound";
+    shadowPrice: number;
+    /**
+     * Unit of the shadow price.
+     */
+    unit: string;
+  }[];
+  /**
+   * First-order optimality residual at the proposal.
+   */
+  kkt: {
+    /**
+     * Largest gradient-of-Lagrangian entry, objective unit per variable unit.
+     */
+    stationarity: number;
+    /**
+     * Largest |multiplier × slack|, objective unit.
+     */
+    complementarity: number;
+    /**
+     * Largest constraint or bound violation, constraint units.
+     */
+    feasibility: number;
+  };
+  solver: {
+    name: "sqp" | "highs" | "javascript-lp-solver";
+    status: string;
+    message: string;
+    /**
+     * SQP iterations; absent when the LP solver does not report them.
+     */
+    iterations?: number;
+    /**
+     * Wall time of the solve, ms.
+     */
+    solveTimeMs: number;
+    /**
+     * LP only: a HiGHS model kept from an earlier cycle was re-solved.
+     */
+    warmStart?: boolean;
+  };
+  mismatch: {
+    method: "none" | "bias" | "modifier";
+    /**
+     * Filter gain K in (0, 1].
+     */
+    gain?: number;
+    /**
+     * The correction was recomputed this cycle (false: the previous one kept).
+     */
+    updated: boolean;
+    note: string;
+    /**
+     * Objective measured at the current operation, objective unit.
+     */
+    plantObjective?: number;
+    /**
+     * Uncorrected model objective at the current operation, objective unit.
+     */
+    modelObjective?: number;
+    /**
+     * Of the scaled operating-point set used for the plant gradient.
+     */
+    conditionNumber?: number;
+    /**
+     * Unknowns the objective depends on that no tag measures (their plant value is the model's).
+     *
+     * @maxItems 500
+     */
+    unmeasured?: string[];
+    /**
+     * Bias update: measured − model per measured unknown, filtered.
+     *
+     * @maxItems 500
+     */
+    bias?: {
+      symbol: string;
+      unit: string;
+      value: number;
+    }[];
+    /**
+     * Modifier adaptation: objective + ε + λᵀ(u − u_k), each constraint g + ε + λᵀ(u − u_k) (plant minus model).
+     */
+    modifiers?: {
+      /**
+       * u_k, the operating point the modifiers refer to (empty before the first update).
+       *
+       * @maxItems 500
+       */
+      point: PerDecision[];
+      /**
+       * ε, objective unit.
+       */
+      objectiveEpsilon: number;
+      /**
+       * λ per decision, objective unit per decision unit.
+       *
+       * @maxItems 500
+       */
+      objectiveLambda: PerDecision[];
+      /**
+       * @maxItems 500
+       */
+      constraints: {
+        name: string;
+        /**
+         * ε, constraint unit.
+         */
+        epsilon: number;
+        /**
+         * @maxItems 500
+         */
+        lambda: PerDecision[];
+      }[];
+      /**
+       * Modifier updates applied so far.
+       */
+      iteration: number;
+    };
+  };
+  /**
+   * The model parameters used, model units.
+   *
+   * @maxItems 500
+   */
+  parameters: SymbolValue[];
+  /**
+   * The prices used, model units.
+   *
+   * @maxItems 500
+   */
+  prices: SymbolValue[];
+}
+export interface PerDecision {
+  decision: string;
+  value: number;
+}
+export interface SymbolValue {
+  symbol: string;
+  value: number;
+  unit: string;
+}
+
+/**
+ * What the control side (the demo plant, or a real control gateway) did: its answer to one command (trigger 'command'), or a change of its own state (shed, recovered) or a periodic status. Published on rto.<site>.readback. Times are Unix epoch milliseconds.
+ */
+export type Readback = {
+  /**
+   * command: the answer to command 'commandSeq'; shed: the watchdog fired and the gateway now holds its own setpoints; recovered: heartbeats resumed; status: a periodic report.
+   */
+  trigger: "command" | "shed" | "recovered" | "status";
+  /**
+   * The site and process unit that answers.
+   */
+  target: {
+    site: string;
+    unit: string;
+  };
+  /**
+   * Sequence number of the command answered; 0 when it could not be read from the command.
+   */
+  commandSeq?: number;
+  /**
+   * The command's proposalId, echoed.
+   */
+  proposalId?: string;
+  /**
+   * Highest command sequence number the gateway has accepted (0: none). Lets the sender resume numbering after a restart.
+   */
+  lastSeq: number;
+  /**
+   * Whether the command was accepted (trigger 'command' only).
+   */
+  accepted?: boolean;
+  /**
+   * Stable refusal code when refused, e.g. GATEWAY_SIGNATURE_INVALID (see GATEWAY_CODES in services/kit/control-gateway.ts); a real gateway may add its own.
+   */
+  code?: string;
+  /**
+   * Human-readable reason or note.
+   */
+  reason?: string;
+  /**
+   * Commands skipped before this accepted one (a gap in the sequence: messages lost on the way).
+   */
+  missedSeqs?: number;
+  /**
+   * True when the gateway has shed the optimizer (no heartbeat within its watchdog) and holds its own setpoints.
+   */
+  shed: boolean;
+  /**
+   * Mode of the gateway: remote (follows optimizer setpoints), local (holds its own setpoints, e.g. when shed or switched by an operator), manual (loops in manual at the control system).
+   */
+  mode: "remote" | "local" | "manual";
+  /**
+   * The setpoints the gateway manages: for an accepted command those it applies, otherwise those it holds.
+   *
+   * @maxItems 50
+   */
+  setpoints: ReadbackSetpoint[];
+  /**
+   * When the gateway decided, epoch ms.
+   */
+  time: number;
+};
+
+export interface ReadbackSetpoint {
+  tag: string;
+  unit: string;
+  /**
+   * Setpoint in force now (part way along a ramp), in 'unit'.
+   */
+  current: number;
+  /**
+   * Where the setpoint is heading, in 'unit'.
+   */
+  target: number;
+  /**
+   * Ramp rate in use, 'unit' per second, after the gateway's own rate limit; absent for a step.
+   */
+  rampPerS?: number;
+  /**
+   * True when the gateway lowered the requested ramp rate to its own limit.
+   */
+  rampClipped?: boolean;
+}
+
+export type ReconciledTagId = string;
+export type ReconciledUnit = string;
+
+/**
+ * A snapshot reconciled against the site model's balances, published by reconcile on rto.<site>.reconciled; the envelope's cycleid is the snapshot's and causationid the snapshot event. Every value, standard deviation and gross-error size is in the unit of the model symbol the tag measures ('unit'). Tests follow Narasimhan & Jordache (2000): global chi-square test, maximum-power measurement tests and nodal tests (Šidák-corrected), serial elimination. When the site declares no balances the snapshot passes through unchanged and 'passThrough' says why.
+ */
+export interface Reconciled {
+  /**
+   * linear: weighted least squares in closed form; bilinear: successive linearization; pass-through: no balances.
+   */
+  method: "linear" | "bilinear" | "pass-through";
+  /**
+   * Why the values passed through unreconciled, or null when they were reconciled.
+   */
+  passThrough: string | null;
+  /**
+   * The snapshot window's first sample time.
+   */
+  startMs: number;
+  /**
+   * The snapshot window's latest sample time.
+   */
+  endMs: number;
+  /**
+   * model: each tag's measurement sigma from the site model; model+window: that combined with the window's standard error of the mean.
+   */
+  sigmaSource: "model" | "model+window";
+  /**
+   * @maxItems 5000
+   */
+  tags: ReconciledTag[];
+  /**
+   * Global test after serial elimination; null when passed through.
+   */
+  globalTest: ReconcileGlobalTest | null;
+  /**
+   * Global test before any elimination; null when passed through.
+   */
+  initialGlobalTest: ReconcileGlobalTest | null;
+  /**
+   * @maxItems 5000
+   */
+  measurementTests: {
+    tag: ReconciledTagId;
+    /**
+     * |z|, standard normal without a gross error.
+     */
+    statistic: number;
+    critical: number;
+    passed: boolean;
+  }[];
+  /**
+   * @maxItems 2000
+   */
+  nodalTests: {
+    /**
+     * Balance name, or 'combination of …' where unmeasured tags were projected out.
+     */
+    balance: string;
+    statistic: number;
+    critical: number;
+    passed: boolean;
+  }[];
+  /**
+   * Suspected gross errors in the order serial elimination removed them.
+   *
+   * @maxItems 5000
+   */
+  grossErrors: {
+    tag: ReconciledTagId;
+    unit: ReconciledUnit;
+    /**
+     * Measured minus reconciled, model unit.
+     */
+    estimatedSize: number;
+    /**
+     * Its standard deviation, model unit.
+     */
+    estimatedSizeSd: number;
+    /**
+     * Measurement-test |z| when removed.
+     */
+    statistic: number;
+    /**
+     * Tags with the same statistic: indistinguishable from this one on these balances.
+     *
+     * @maxItems 5000
+     */
+    tiedWith: ReconciledTagId[];
+  }[];
+  /**
+   * Tags treated as unmeasured after serial elimination.
+   *
+   * @maxItems 5000
+   */
+  eliminated: ReconciledTagId[];
+  /**
+   * Linearizations of the last bilinear solve.
+   */
+  iterations?: number;
+  /**
+   * Largest |balance residual| at the reconciled values, in the balances' units.
+   */
+  maxBalanceResidual?: number;
+  /**
+   * @maxItems 200
+   */
+  warnings: {
+    code: string;
+    message: string;
+  }[];
+}
+export interface ReconciledTag {
+  tag: ReconciledTagId;
+  /**
+   * The model symbol the tag measures.
+   */
+  variable: string;
+  /**
+   * Unit of the model symbol; every number of this entry is in it.
+   */
+  unit: string;
+  /**
+   * reconciled: measured and checked by a balance; non-redundant: measured, no balance checks it (unchanged); passed-through: in no balance (unchanged); eliminated: a suspected gross error, value estimated from the balances; estimated: not in the snapshot, value determined by the balances; unobservable: not in the snapshot and not determined (value null).
+   */
+  status: "reconciled" | "non-redundant" | "passed-through" | "eliminated" | "estimated" | "unobservable";
+  /**
+   * The snapshot's window mean, or null when the tag was not in the snapshot.
+   */
+  measured: number | null;
+  /**
+   * Measurement standard deviation used as the weight, or null when not measured.
+   */
+  sigma: number | null;
+  /**
+   * Reconciled (or estimated) value.
+   */
+  value: number | null;
+  /**
+   * Standard deviation of 'value'.
+   */
+  sd: number | null;
+  /**
+   * measured − value, for tags measured at the end.
+   */
+  adjustment: number | null;
+}
+export interface ReconcileGlobalTest {
+  /**
+   * γ = rᵀ(A·V·Aᵀ)⁻¹r.
+   */
+  statistic: number;
+  /**
+   * Independent (reduced) balances.
+   */
+  dof: number;
+  /**
+   * χ² upper critical value at alpha.
+   */
+  critical: number;
+  pValue: number;
+  alpha: number;
+  passed: boolean;
+}
+
+export type SnapshotTimeMs = number;
+export type FiniteNumber = number;
+
+/**
+ * Window statistics over a confirmed steady period, published by steady on rto.<site>.snapshot; the envelope's cycleid names the RTO cycle it opened. Each tag gives its mean and sample standard deviation twice: in the tag's own unit (as measured, after ingest's source conversion) and in the unit of the model symbol it measures. Times are Unix epoch milliseconds of sample time. Fields: startMs and endMs are the sample times of the first and latest batch of the window; createdAtMs steady's clock; lastCommandMs the last command steady knew of. Per tag: mean and std (sample standard deviation, n − 1) and sigma (the site model's measurement standard deviation) in the tag's unit; modelMean and modelStd in modelUnit, the unit of the model symbol 'variable'.
+ */
+export interface Snapshot {
+  startMs: SnapshotTimeMs;
+  endMs: SnapshotTimeMs;
+  /**
+   * endMs − startMs, s.
+   */
+  spanS: number;
+  createdAtMs?: SnapshotTimeMs;
+  /**
+   * Time of the last command steady knew of, or null.
+   */
+  lastCommandMs: SnapshotTimeMs | null;
+  /**
+   * @maxItems 5000
+   */
+  tags: SnapshotTag[];
+  /**
+   * Tags of the site model left out, with the reason (rejected: <ingest verdict>, transient, warming-up, too few samples: n).
+   *
+   * @maxItems 5000
+   */
+  excluded: {
+    tag: string;
+    reason: string;
+  }[];
+}
+export interface SnapshotTag {
+  tag: string;
+  /**
+   * The model symbol the tag measures.
+   */
+  variable: string;
+  /**
+   * The tag decides the plant-wide verdict.
+   */
+  key: boolean;
+  /**
+   * Good samples in the window.
+   */
+  count: number;
+  /**
+   * The tag's unit.
+   */
+  unit: string;
+  mean: FiniteNumber;
+  /**
+   * Sample standard deviation (n − 1), tag unit.
+   */
+  std: number;
+  /**
+   * The site model's measurement standard deviation, tag unit.
+   */
+  sigma: number;
+  /**
+   * Unit of the model symbol.
+   */
+  modelUnit: string;
+  modelMean: FiniteNumber;
+  /**
+   * Sample standard deviation, model unit.
+   */
+  modelStd: number;
+}
+
+export type SteadyTimeMs = number;
+
+/**
+ * The plant-wide steady-state verdict (Cao & Rhinehart 1995 R-statistic over the site model's key tags), published by steady on rto.<site>.steady whenever it changes. When it turns steady the envelope's cycleid names the cycle it opened. Times are Unix epoch milliseconds of sample time unless named otherwise. Fields: timeMs is the sample time of the batch that changed the verdict; decidedAtMs steady's clock; steadySinceMs the start of the current candidate steady period; settleUntilMs the sample time from which the plant may be steady after the last command.
+ */
+export interface SteadyVerdict {
+  /**
+   * blocked: a key tag's latest value was rejected by ingest; warming-up: a key tag has too few samples; transient: a key tag is not steady; settling: within the settle time after a command; pending: all key tags steady for less than the required duration; steady.
+   */
+  state: "blocked" | "warming-up" | "transient" | "settling" | "pending" | "steady";
+  steady: boolean;
+  timeMs: SteadyTimeMs;
+  decidedAtMs?: SteadyTimeMs;
+  /**
+   * Start of the current candidate steady period, or null.
+   */
+  steadySinceMs: SteadyTimeMs | null;
+  /**
+   * Sample time from which the plant may be steady after the last command, or null.
+   */
+  settleUntilMs: SteadyTimeMs | null;
+  /**
+   * Key tags whose latest value was rejected, with ingest's verdict.
+   *
+   * @maxItems 1000
+   */
+  blockedBy: {
+    tag: string;
+    status: string;
+  }[];
+  /**
+   * Key tags not (yet) steady, with their latest R (dimensionless; null before two samples) and σ̂²/σ².
+   *
+   * @maxItems 1000
+   */
+  notSteady: {
+    tag: string;
+    /**
+     * noisy: the tag's high-frequency variance (δ² filter / 2) is above the limit for its declared sigma, whatever R says.
+     */
+    state: "warming-up" | "steady" | "transient" | "noisy" | "rejected";
+    /**
+     * σ̂²/σ²: the δ² filter's variance estimate over the site model's sigma squared (dimensionless); null without a declared sigma or before two samples.
+     */
+    noiseRatio?: number | null;
+    r: number | null;
+  }[];
+}
+
+export type HealthTimeMs = number;
+export type TagStatusName =
+  | "good"
+  | "out-of-range"
+  | "spike"
+  | "frozen"
+  | "stale"
+  | "bad-quality"
+  | "not-a-number"
+  | "unknown-tag"
+  | "clock-skew";
+
+/**
+ * Ingest's periodic summary of every tag's data quality: the verdict counts (cumulative and since the previous report), the latest rejection explained, tags that were seen but are not in the site model, and Sparkplug B edge nodes. Published on rto.<site>.tag-health. Times are Unix epoch milliseconds. Fields: timeMs is ingest's clock at the report; sinceMs the previous report; totals counts values per verdict over all tags since ingest started, window since the previous report; per tag, status is stale when nothing arrived within staleAfterS (or a stale marker was sent), else the verdict of its latest value, counts are since start and window since the previous report, lastRejection explains the latest value that was not good (value in the tag's unit).
+ */
+export interface TagHealth {
+  timeMs: HealthTimeMs;
+  /**
+   * Seconds between reports.
+   */
+  intervalS: number;
+  sinceMs?: HealthTimeMs;
+  totals: StatusCounts;
+  window: StatusCounts;
+  /**
+   * @maxItems 5000
+   */
+  tags: TagHealthEntry[];
+  /**
+   * Names that matched no tag of the site model (their values were published with status unknown-tag), most recent first.
+   *
+   * @maxItems 200
+   */
+  unknown: {
+    name: string;
+    source: string;
+    count: number;
+    lastTimeMs: HealthTimeMs;
+  }[];
+  /**
+   * Distinct unknown names beyond the 200 listed (counted in totals, not listed).
+   */
+  unknownDropped?: number;
+  /**
+   * Sparkplug B edge nodes seen by ingest as a host application.
+   *
+   * @maxItems 500
+   */
+  sparkplug?: {
+    groupId: string;
+    edgeNodeId: string;
+    online: boolean;
+    rebirthsRequested: number;
+    /**
+     * Messages held waiting for a missing seq.
+     */
+    held?: number;
+  }[];
+}
+/**
+ * Values per verdict; a verdict with no values may be left out.
+ */
+export interface StatusCounts {
+  good?: number;
+  "out-of-range"?: number;
+  spike?: number;
+  frozen?: number;
+  stale?: number;
+  "bad-quality"?: number;
+  "not-a-number"?: number;
+  "unknown-tag"?: number;
+  "clock-skew"?: number;
+}
+export interface TagHealthEntry {
+  tag: string;
+  unit?: string;
+  /**
+   * True when 'status' is good.
+   */
+  healthy?: boolean;
+  status: TagStatusName;
+  /**
+   * Verdict of the latest value; null when none arrived.
+   */
+  lastStatus: TagStatusName | null;
+  lastTimeMs: HealthTimeMs | null;
+  lastGoodTimeMs: HealthTimeMs | null;
+  counts: StatusCounts;
+  window: StatusCounts;
+  /**
+   * The latest value that was not good, explained.
+   */
+  lastRejection?: {
+    status: TagStatusName;
+    /**
+     * The value in the tag's unit, or null.
+     */
+    value: number | null;
+    timeMs: HealthTimeMs;
+    detail: string;
+  };
+}
+
+/**
+ * validate's verdict on one proposal (the envelope's cycleid names the cycle), published on rto.<site>.validation: every check by name with pass, fail or skip and its reason, the setpoints that would move, and what happens next. verdict pass: at least one setpoint moves and every check passed; skip: every move lies within its deadband, nothing is sent (not a failure); fail: a check failed, nothing is sent and the last good setpoints hold. Values are in each setpoint's unit.
+ */
+export interface ValidationResult {
+  /**
+   * Id of the rto.proposal.v1 event judged.
+   */
+  proposalId: string;
+  verdict: "pass" | "skip" | "fail";
+  /**
+   * The mode in force when judged.
+   */
+  mode: "off" | "advisory" | "closed-loop";
+  /**
+   * dispatch: a command goes out now; await-approval: waits for an operator (until approvalExpiresAt); observe: mode off, nothing is sent; none: nothing to send (skip or fail).
+   */
+  next: "dispatch" | "await-approval" | "observe" | "none";
+  /**
+   * advisory only: the approval must arrive before this instant, epoch ms.
+   */
+  approvalExpiresAt?: number;
+  /**
+   * @minItems 1
+   * @maxItems 2000
+   */
+  checks: [ValidationCheck, ...ValidationCheck[]];
+  /**
+   * @maxItems 500
+   */
+  setpoints: ValidatedSetpoint[];
+}
+export interface ValidationCheck {
+  name:
+    | "solver-status"
+    | "kkt-residual"
+    | "bounds"
+    | "move-limit"
+    | "ramp-rate"
+    | "deadband"
+    | "min-improvement"
+    | "data-age"
+    | "model-fit"
+    | "consistency"
+    | "override"
+    | "dispatch-hold"
+    | "readback-known";
+  outcome: "pass" | "fail" | "skip";
+  /**
+   * Stable code of a failure or skip, e.g. VALIDATE_BOUNDS.
+   */
+  code?: string;
+  reason: string;
+  /**
+   * The decision a per-setpoint check is about.
+   */
+  decision?: string;
+  /**
+   * The quantity checked, in 'unit'.
+   */
+  value?: number;
+  /**
+   * The limit it was checked against, in 'unit'.
+   */
+  limit?: number;
+  unit?: string;
+}
+export interface ValidatedSetpoint {
+  decision: string;
+  tag: string;
+  unit: string;
+  /**
+   * Setpoint in force (the control side's read-back, else the proposal's current), 'unit'.
+   */
+  from: number;
+  /**
+   * The proposed setpoint, 'unit'.
+   */
+  target: number;
+  /**
+   * move: would be sent; skip: within the deadband, left as is.
+   */
+  action: "move" | "skip";
+  /**
+   * Ramp rate to request, 'unit' per second; absent for a step.
+   */
+  rampPerS?: number;
+}
+
 /** Data type of each event type, keyed by CloudEvents `type`. */
 export interface EventDataMap {
+  "rto.command.v1": SetpointCommand;
   "rto.cycle.v1": CycleStatus;
   "rto.deadletter.v1": DeadLetter;
   "rto.heartbeat.v1": Heartbeat;
   "rto.measurements.v1": Measurements;
+  "rto.model.v1": ModelUpdate;
+  "rto.operator-approval.v1": OperatorApproval;
+  "rto.operator-mode.v1": OperatorMode;
+  "rto.plant-control.v1": PlantControl;
+  "rto.prices.v1": Prices;
+  "rto.proposal.v1": Proposal;
+  "rto.readback.v1": Readback;
+  "rto.reconciled.v1": Reconciled;
+  "rto.snapshot.v1": Snapshot;
+  "rto.steady.v1": SteadyVerdict;
+  "rto.tag-health.v1": TagHealth;
+  "rto.validation.v1": ValidationResult;
 }
 
 export type EventType = keyof EventDataMap;
