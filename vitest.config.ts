@@ -7,7 +7,12 @@ export default defineConfig({
       {
         test: {
           name: "unit",
-          include: ["services/**/*.unit.test.ts", "cli/**/*.unit.test.ts", "test/**/*.unit.test.ts", "scripts/**/*.unit.test.ts"],
+          include: [
+            "services/**/*.unit.test.ts",
+            "cli/**/*.unit.test.ts",
+            "test/**/*.unit.test.ts",
+            "scripts/**/*.unit.test.ts",
+          ],
           testTimeout: 30_000,
         },
       },

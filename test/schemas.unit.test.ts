@@ -23,7 +23,9 @@ function validatorFor(name: string) {
 }
 
 describe("message schemas", () => {
-  const schemaFiles = readdirSync(SCHEMA_DIR).filter((f) => /^(envelope|rto\..+\.v\d+)\.schema\.json$/.test(f));
+  const schemaFiles = readdirSync(SCHEMA_DIR).filter((f) =>
+    /^(envelope|rto\..+\.v\d+)\.schema\.json$/.test(f),
+  );
 
   it.each(schemaFiles)("%s has valid and invalid fixtures, and each is judged as labelled", (file) => {
     const name = file.replace(/\.schema\.json$/, "");
@@ -37,9 +39,10 @@ describe("message schemas", () => {
       expect(ok, `${name}/valid/${f}: ${JSON.stringify(validate.errors)}`).toBe(true);
     }
     for (const f of invalid) {
-      expect(validate(JSON.parse(readFileSync(join(fixturesDir, name, "invalid", f), "utf8"))), `${name}/invalid/${f}`).toBe(
-        false,
-      );
+      expect(
+        validate(JSON.parse(readFileSync(join(fixturesDir, name, "invalid", f), "utf8"))),
+        `${name}/invalid/${f}`,
+      ).toBe(false);
     }
   });
 
@@ -50,15 +53,22 @@ describe("message schemas", () => {
       const n = node as Record<string, unknown>;
       if (n.type === "object" || (Array.isArray(n.type) && n.type.includes("object"))) {
         // `data` of the envelope is the one open object: its schema is chosen by `type`.
-        if (n.additionalProperties !== false && !path.endsWith("/properties/data")) problems.push(`${path}: open object`);
+        if (n.additionalProperties !== false && !path.endsWith("/properties/data"))
+          problems.push(`${path}: open object`);
       }
-      if (n.type === "string" && n.maxLength === undefined && n.format === undefined && n.enum === undefined) {
+      if (
+        n.type === "string" &&
+        n.maxLength === undefined &&
+        n.format === undefined &&
+        n.enum === undefined
+      ) {
         problems.push(`${path}: unbounded string`);
       }
       if (n.type === "array" && n.maxItems === undefined) problems.push(`${path}: unbounded array`);
       for (const [k, v] of Object.entries(n)) {
-        if (Array.isArray(v)) v.forEach((x, i) => walk(x, `${path}/${k}/${i}`));
-        else walk(v, `${path}/${k}`);
+        if (Array.isArray(v)) {
+          for (const [i, x] of v.entries()) walk(x, `${path}/${k}/${i}`);
+        } else walk(v, `${path}/${k}`);
       }
     };
     walk(JSON.parse(readFileSync(join(SCHEMA_DIR, file), "utf8")), "#");
