@@ -168,8 +168,24 @@ export function createPipeline(model: SiteModel, options: PipelineOptions = {}):
     if (tag.source.topic === undefined) byName.set(tag.source.name, r);
     else byTopicName.set(`${tag.source.topic}\u0000${tag.source.name}`, r);
   });
-  const resolve = (sourceKey: string, name: string): Resolved | undefined =>
+  const lookup = (sourceKey: string, name: string): Resolved | undefined =>
     byTopicName.get(`${sourceKey}\u0000${name}`) ?? byName.get(name) ?? byId.get(name);
+  // Per-source memo of the lookup: a live source sends the same names batch after batch, and the
+  // lookup builds a key string per value. Bounded: unknown names are not memoised.
+  const memo = new Map<string, Map<string, Resolved>>();
+  const resolve = (sourceKey: string, name: string): Resolved | undefined => {
+    let bySource = memo.get(sourceKey);
+    const hit = bySource?.get(name);
+    if (hit !== undefined) return hit;
+    const r = lookup(sourceKey, name);
+    if (r === undefined) return undefined;
+    if (bySource === undefined && memo.size < 1000) {
+      bySource = new Map();
+      memo.set(sourceKey, bySource);
+    }
+    if (bySource !== undefined && bySource.size < 10 * tags.length + 100) bySource.set(name, r);
+    return r;
+  };
 
   // Conversions for a `unit` field that differs from the expected one, computed once per pair.
   let math: ReturnType<typeof newMath> | undefined;

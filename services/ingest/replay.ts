@@ -40,8 +40,10 @@ export interface ReplayOptions {
    * Plant time per wall time: 60 replays an hour in a minute. Default Infinity: as fast as possible.
    */
   speedup?: number;
-  /** Show a progress bar on stderr-free stdout. Default: when stdout is a TTY and `file` is given. */
+  /** Show a progress bar (needs `file`, whose size is the bar's total). Default: when `progressStream` is a TTY. */
   progress?: boolean;
+  /** Where the progress bar is drawn. Default process.stderr, so that stdout stays clean for data. */
+  progressStream?: NodeJS.WritableStream & { isTTY?: boolean };
 }
 
 /** What a replay did. */
@@ -103,11 +105,15 @@ export async function replayCsv(options: ReplayOptions): Promise<ReplayResult> {
   let input: AsyncIterable<string | Uint8Array>;
   if (options.file !== undefined) {
     const total = statSync(options.file).size;
-    if (options.progress ?? process.stdout.isTTY === true) {
+    const stream = options.progressStream ?? process.stderr;
+    if (options.progress ?? stream.isTTY === true) {
       bar = new cliProgress.SingleBar(
         {
           format: "replay |{bar}| {percentage}% | {batches} batches | {rejected} rejected | {time}",
           hideCursor: true,
+          stream,
+          // Without a TTY the bar still prints a line now and then (every notTTYSchedule ms) and at the end.
+          noTTYOutput: true,
         },
         cliProgress.Presets.shades_classic,
       );

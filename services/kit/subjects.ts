@@ -30,6 +30,8 @@ export function subject(site: string, stream: string): string {
 
 /** Checks a neutral subject or filter: words of [A-Za-z0-9_-], or `*`, or a final `>`. */
 export function assertSubject(s: string, allowWildcards = false): void {
+  // Services publish to a handful of subjects over and over: remember the ones already checked.
+  if (checkedSubjects.has(s)) return;
   const words = s.split(".");
   words.forEach((w, i) => {
     const wild = w === "*" || (w === ">" && i === words.length - 1);
@@ -38,7 +40,14 @@ export function assertSubject(s: string, allowWildcards = false): void {
       throw new KitError("KIT_SUBJECT_INVALID", `subject '${s}': word '${w}' is not allowed`);
     }
   });
+  // Only wildcard-free subjects are remembered: a filter passes only where wildcards are allowed.
+  if (!s.includes("*") && !s.includes(">")) {
+    if (checkedSubjects.size >= 1024) checkedSubjects.clear();
+    checkedSubjects.add(s);
+  }
 }
+
+const checkedSubjects = new Set<string>();
 
 /** Neutral subject (or filter) → MQTT topic (or filter). */
 export function toMqtt(s: string): string {

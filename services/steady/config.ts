@@ -18,6 +18,15 @@ export interface SteadyOptions {
   warmupSamples?: number;
   /** Fewest good samples a tag needs in the window to enter a snapshot. Default 2. */
   minSnapshotSamples: number;
+  /**
+   * Flag a tag "noisy" (not steady) when its high-frequency variance exceeds what its site-model sigma
+   * allows (detector.ts, noiseRatioLimit). Default true.
+   */
+  noiseTest: boolean;
+  /** Confidence of the noise-level test. Default 0.999. */
+  noiseConfidence?: number;
+  /** Confidence below which a noisy tag is clear again (hysteresis). Default 0.99. */
+  noiseClearConfidence?: number;
   /** Take command times from rto.<site>.command (issuedAt) and rto.<site>.readback. Default true. */
   followCommands: boolean;
 }
@@ -38,6 +47,9 @@ export const steadyConfigSchema = serviceConfigSchema(
         warmupSamples: { type: "integer", minimum: 2, description: "Samples with no verdict per tag." },
         minSnapshotSamples: { type: "integer", minimum: 2, default: 2 },
         followCommands: { type: "boolean", default: true },
+        noiseTest: { type: "boolean", default: true, description: "Noise-level test on declared sigma." },
+        noiseConfidence: { type: "number", exclusiveMinimum: 0, exclusiveMaximum: 1 },
+        noiseClearConfidence: { type: "number", exclusiveMinimum: 0, exclusiveMaximum: 1 },
       },
     },
   },

@@ -13,6 +13,7 @@
  * Pure: no bus, no clock of its own. Time comes in with each batch (sample time, epoch ms) and as
  * `nowMs` (the caller's clock, only stamped on outputs).
  */
+import { chiSquareQuantile } from "../model/distributions.js";
 import { SteadyError } from "./errors.js";
 
 /** Filter factors of the three first-order filters (dimensionless, each in (0, 1]). */
@@ -126,6 +127,43 @@ export function checkLambdas(lambdas: RFilterLambdas): void {
   }
 }
 
+/**
+ * The noise-level test's limit on σ̂²/σ² (dimensionless) at `confidence`, for the δ² filter factor
+ * `lambda3`: a tag whose high-frequency variance σ̂² = δ²_f/2 exceeds σ² times this is "noisy".
+ *
+ * Why δ²_f/2: under white noise of variance σ² the successive difference X_i − X_i−1 has variance 2σ², so
+ * the δ² filter estimates 2σ² (Cao & Rhinehart 1995, the denominator of R); the R-statistic itself is a
+ * ratio of two variance estimates and cannot see a larger white-noise amplitude.
+ *
+ * Distribution (derived, no source; checked by Monte Carlo in detector.unit.test.ts): with σ = 1,
+ * δ²_f = Σ_k w_k·d²_(i−k), w_k = λ(1−λ)^k, a quadratic form in the Gaussian successive differences d,
+ * whose covariance Σ is tridiagonal (2 on the diagonal, −1 beside it). An EWMA of independent terms has
+ * the effective sample size (2−λ)/λ (its variance is λ/(2−λ) times one term's), which suggests χ² with
+ * ν = (2−λ)/λ; but the differences overlap (the squared differences have lag-1 correlation 1/4) and
+ * the latest term weighs λ, so that choice gives 0.7 % false alarms at a nominal 0.1 % (λ = 0.1).
+ * Instead the quadratic form's first three cumulants, κ_r = 2^(r−1)(r−1)!·tr((WΣ)^r) (standard for
+ * Gaussian quadratic forms, from memory), are matched by a + b·χ²_ν — the three-moment approximation
+ * (Pearson 1959; used by Imhof 1961, Biometrika 48:419–426; from memory). With r = 1 − λ, in closed form
+ * for the stationary filter:
+ *   κ1 = 2,  tr((WΣ)²) = λ²(4 + 2r)/(1 − r²),  tr((WΣ)³) = λ³(8 + 6r + 6r²)/(1 − r³),
+ *   b = κ3/(4κ2),  ν = 8κ2³/κ3²,  a = κ1 − bν,  limit = (a + b·χ²_ν(confidence)) / 2.
+ * For λ3 = 0.1 this gives ν ≈ 6.3 and a 99.9 % limit of 2.84 (0.12 % exceedances in 2·10⁶ samples).
+ */
+export function noiseRatioLimit(lambda3: number, confidence: number): number {
+  if (!(lambda3 > 0 && lambda3 <= 1))
+    throw new SteadyError("STEADY_OPTIONS_INVALID", `lambda3 must be in (0, 1], got ${lambda3}`);
+  if (!(confidence > 0 && confidence < 1))
+    throw new SteadyError("STEADY_OPTIONS_INVALID", `noise confidence must be in (0, 1), got ${confidence}`);
+  const r = 1 - lambda3;
+  const k1 = 2;
+  const k2 = (2 * lambda3 ** 2 * (4 + 2 * r)) / (1 - r * r);
+  const k3 = (8 * lambda3 ** 3 * (8 + 6 * r + 6 * r * r)) / (1 - r ** 3);
+  const b = k3 / (4 * k2);
+  const nu = (8 * k2 ** 3) / (k3 * k3);
+  const a = k1 - b * nu;
+  return (a + b * chiSquareQuantile(confidence, nu)) / 2;
+}
+
 /** Detector options; every field is optional and has the default named in its doc. */
 export interface DetectorOptions {
   /** Filter factors. Default (0.2, 0.1, 0.1), Cao & Rhinehart 1995. */
@@ -150,17 +188,37 @@ export interface DetectorOptions {
   settleTimeS?: number;
   /** Fewest good samples a tag needs in the window to enter a snapshot. Default 2 (a standard deviation needs two). */
   minSnapshotSamples?: number;
+  /**
+   * Confidence of the noise-level test (see `noiseRatioLimit`): a tag with a declared sigma turns
+   * "noisy" when σ̂²/σ² exceeds the limit at this confidence. Default 0.999 (a false alarm in about
+   * 1 000 samples of white noise at the declared sigma, before hysteresis).
+   */
+  noiseConfidence?: number;
+  /**
+   * A noisy tag is clear again when σ̂²/σ² falls below the limit at this confidence (the hysteresis of
+   * the noise test). Default 0.99. Must not exceed `noiseConfidence`.
+   */
+  noiseClearConfidence?: number;
 }
 
 /** Options after defaults are applied. */
 export type ResolvedDetectorOptions = Readonly<Required<Omit<DetectorOptions, "lambdas">>> & {
   readonly lambdas: Readonly<RFilterLambdas>;
+  /** σ̂²/σ² above which a tag turns noisy (from `noiseConfidence`). */
+  readonly noiseRatioHigh: number;
+  /** σ̂²/σ² below which a noisy tag is clear again (from `noiseClearConfidence`). */
+  readonly noiseRatioLow: number;
 };
 
 /** A tag the detector watches. Key tags decide the plant-wide verdict; the others only enter snapshots. */
 export interface DetectorTag {
   id: string;
   key: boolean;
+  /**
+   * Declared measurement standard deviation, in the tag's unit (the site model's `sigma`). Enables the
+   * noise-level test; absent or ≤ 0: no noise test for this tag.
+   */
+  sigma?: number;
 }
 
 /** One value in a batch. `status` is ingest's verdict: anything other than "good" is rejected. */
@@ -176,8 +234,12 @@ export interface DetectorBatch {
   values: readonly DetectorValue[];
 }
 
-/** Per-tag state: "warming-up" (no verdict yet), "steady", "transient", or "rejected" (last status not good). */
-export type TagState = "warming-up" | "steady" | "transient" | "rejected";
+/**
+ * Per-tag state: "warming-up" (no verdict yet), "steady", "transient" (R above its limit), "noisy" (the
+ * high-frequency variance is above the declared sigma's limit, whatever R says), or "rejected" (last
+ * status not good).
+ */
+export type TagState = "warming-up" | "steady" | "transient" | "noisy" | "rejected";
 
 /** What the detector knows about one tag. */
 export interface TagVerdict {
@@ -186,6 +248,8 @@ export interface TagVerdict {
   state: TagState;
   /** Latest R (dimensionless); null before the second sample. */
   r: number | null;
+  /** Latest σ̂²/σ² = δ²_f / (2σ²) (dimensionless); null before the second sample or without a declared sigma. */
+  noiseRatio: number | null;
   /** Latest status from ingest ("good" or the rejection reason); null before any sample. */
   lastStatus: string | null;
   /** Sample time of the latest value (epoch ms); null before any sample. */
@@ -195,12 +259,15 @@ export interface TagVerdict {
 /**
  * Plant-wide state, in order of precedence:
  * "blocked" (a key tag's latest value was rejected), "warming-up" (a key tag has no verdict yet),
- * "transient" (a key tag is not steady), "settling" (within the settle time after a command),
+ * "transient" (a key tag is transient or noisy), "settling" (within the settle time after a command),
  * "pending" (all key tags steady, but for less than the steady duration), "steady".
  */
 export type PlantState = "blocked" | "warming-up" | "transient" | "settling" | "pending" | "steady";
 
-/** The plant-wide verdict, emitted whenever its state (or, when blocked, the set of blocking tags) changes. */
+/**
+ * The plant-wide verdict, emitted whenever its state changes, or, within "blocked", the blocking tags,
+ * or, within "transient", which key tags are noisy.
+ */
 export interface PlantVerdict {
   state: PlantState;
   steady: boolean;
@@ -214,8 +281,8 @@ export interface PlantVerdict {
   settleUntilMs: number | null;
   /** Key tags whose latest value was rejected, with ingest's reason. */
   blockedBy: { tagId: string; status: string }[];
-  /** Key tags not (yet) steady. */
-  notSteady: { tagId: string; state: TagState; r: number | null }[];
+  /** Key tags not (yet) steady, with R and (when the tag declares a sigma) σ̂²/σ². */
+  notSteady: { tagId: string; state: TagState; r: number | null; noiseRatio: number | null }[];
 }
 
 /** Window statistics of one tag over a steady period (Welford's algorithm, sample standard deviation). */
@@ -240,7 +307,7 @@ export interface Snapshot {
   /** Time of the last command noted (epoch ms), or null. */
   lastCommandMs: number | null;
   tags: SnapshotTag[];
-  /** Tags left out of the snapshot and why ("rejected: <status>", "transient", "warming-up", "too few samples: n"). */
+  /** Tags left out of the snapshot and why ("rejected: <status>", "transient", "noisy: …", "warming-up", "too few samples: n"). */
   excluded: { tagId: string; reason: string }[];
 }
 
@@ -265,6 +332,8 @@ export interface Detector {
   readonly options: ResolvedDetectorOptions;
 }
 
+const orNull = (x: number): number | null => (Number.isNaN(x) ? null : x);
+
 const STATE_WARM = 0;
 const STATE_STEADY = 1;
 const STATE_TRANSIENT = 2;
@@ -281,6 +350,8 @@ export function resolveDetectorOptions(options: DetectorOptions = {}): ResolvedD
     steadyDurationS: options.steadyDurationS ?? 300,
     settleTimeS: options.settleTimeS ?? 600,
     minSnapshotSamples: options.minSnapshotSamples ?? 2,
+    noiseConfidence: options.noiseConfidence ?? 0.999,
+    noiseClearConfidence: options.noiseClearConfidence ?? 0.99,
   };
   const bad = (name: string, v: number, range: string): never => {
     throw new SteadyError("STEADY_OPTIONS_INVALID", `${name} must be ${range}, got ${v}`);
@@ -303,7 +374,19 @@ export function resolveDetectorOptions(options: DetectorOptions = {}): ResolvedD
     bad("settleTimeS", resolved.settleTimeS, "finite and ≥ 0 s");
   if (!(Number.isInteger(resolved.minSnapshotSamples) && resolved.minSnapshotSamples >= 2))
     bad("minSnapshotSamples", resolved.minSnapshotSamples, "an integer ≥ 2");
-  return Object.freeze(resolved);
+  if (!(resolved.noiseConfidence > 0 && resolved.noiseConfidence < 1))
+    bad("noiseConfidence", resolved.noiseConfidence, "in (0, 1)");
+  if (!(resolved.noiseClearConfidence > 0 && resolved.noiseClearConfidence <= resolved.noiseConfidence))
+    bad(
+      "noiseClearConfidence",
+      resolved.noiseClearConfidence,
+      `in (0, noiseConfidence = ${resolved.noiseConfidence}]`,
+    );
+  return Object.freeze({
+    ...resolved,
+    noiseRatioHigh: noiseRatioLimit(lambdas.lambda3, resolved.noiseConfidence),
+    noiseRatioLow: noiseRatioLimit(lambdas.lambda3, resolved.noiseClearConfidence),
+  });
 }
 
 /**
@@ -313,6 +396,8 @@ export function resolveDetectorOptions(options: DetectorOptions = {}): ResolvedD
  * Per tag: the R filters of `RFilterBank`; a warm-up of `warmupSamples` samples with no verdict; then
  * hysteresis (transient → steady when R < steadyThreshold, steady → transient when R > transientThreshold;
  * a tag leaves warm-up as steady or transient by the same test against the steady threshold).
+ * Tags with a declared sigma also get the noise-level test (`noiseRatioLimit`), with its own
+ * hysteresis: a noisy tag is not steady whatever R says, and is left out of the window.
  * A rejected value (status not "good") does not enter the filters or the window; it marks the tag
  * rejected until its next good value.
  *
@@ -337,6 +422,12 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
   const keyIdx = tags.flatMap((t, i) => (t.key ? [i] : []));
   const bank = new RFilterBank(n, opts.lambdas);
   const state = new Uint8Array(n); // STATE_*
+  // Noise test: 1/(2σ²) per tag (0 = no test), the noisy flag, and the latest σ̂²/σ².
+  const halfInvVar = new Float64Array(
+    tags.map((t) => (t.sigma !== undefined && t.sigma > 0 ? 0.5 / (t.sigma * t.sigma) : 0)),
+  );
+  const noisy = new Uint8Array(n);
+  const noiseLast = new Float64Array(n).fill(Number.NaN);
   const rLast = new Float64Array(n).fill(Number.NaN);
   const lastStatus: (string | null)[] = new Array<string | null>(n).fill(null);
   const lastTime = new Float64Array(n).fill(Number.NaN);
@@ -349,7 +440,12 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
   let keyRejected = 0;
   let keyWarm = keyIdx.length; // includes key tags with no sample yet
   let keyTransient = 0;
+  let keyNoisy = 0;
   let blockVersion = 0;
+  // A key tag turning noisy (or clear) while the plant is already transient changes what the verdict
+  // says without changing its state: it is announced like a change of blocking tags.
+  let noisyVersion = 0;
+  let currentNoisyVersion = 0;
 
   let lastCommandMs: number | null = null;
   let periodStartMs: number | null = null;
@@ -358,7 +454,7 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
   let current: PlantVerdict = makeVerdict("warming-up", Number.NaN, Number.NaN);
   let currentBlockVersion = 0;
 
-  const { steadyThreshold, transientThreshold, warmupSamples } = opts;
+  const { steadyThreshold, transientThreshold, warmupSamples, noiseRatioHigh, noiseRatioLow } = opts;
   const steadyMs = opts.steadyDurationS * 1000;
   const settleMs = opts.settleTimeS * 1000;
 
@@ -385,10 +481,21 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
     }
   }
 
+  function setNoisy(i: number, next: number): void {
+    if (noisy[i] === next) return;
+    noisy[i] = next;
+    if (isKey[i]) {
+      keyNoisy += next === 1 ? 1 : -1;
+      noisyVersion++;
+    }
+  }
+
   function tagState(i: number): TagState {
     if (lastStatus[i] !== null && lastStatus[i] !== "good") return "rejected";
     const s = state[i]!;
-    return s === STATE_STEADY ? "steady" : s === STATE_TRANSIENT ? "transient" : "warming-up";
+    if (s === STATE_WARM) return "warming-up";
+    if (noisy[i] === 1) return "noisy";
+    return s === STATE_STEADY ? "steady" : "transient";
   }
 
   function makeVerdict(s: PlantState, timeMs: number, nowMs: number): PlantVerdict {
@@ -399,7 +506,7 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
       const r = rLast[i]!;
       if (ts === "rejected") blockedBy.push({ tagId: tags[i]!.id, status: lastStatus[i]! });
       else if (ts !== "steady")
-        notSteady.push({ tagId: tags[i]!.id, state: ts, r: Number.isNaN(r) ? null : r });
+        notSteady.push({ tagId: tags[i]!.id, state: ts, r: orNull(r), noiseRatio: orNull(noiseLast[i]!) });
     }
     return {
       state: s,
@@ -421,6 +528,11 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
       const ts = tagState(i);
       const count = wCount[i]!;
       if (ts === "rejected") excluded.push({ tagId: id, reason: `rejected: ${lastStatus[i]}` });
+      else if (ts === "noisy")
+        excluded.push({
+          tagId: id,
+          reason: `noisy: σ̂²/σ² = ${noiseLast[i]!.toPrecision(3)} above ${noiseRatioHigh.toPrecision(3)}`,
+        });
       else if (ts !== "steady") excluded.push({ tagId: id, reason: ts });
       else if (count < opts.minSnapshotSamples)
         excluded.push({ tagId: id, reason: `too few samples: ${count}` });
@@ -462,7 +574,15 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
       setRejected(i, "good");
       const r = bank.update(i, v.value);
       rLast[i] = r;
+      const hiv = halfInvVar[i]!;
+      const noise = hiv > 0 && bank.count[i]! > 1 ? bank.delta2F[i]! * hiv : Number.NaN;
+      noiseLast[i] = noise;
       if (bank.count[i]! < warmupSamples) continue;
+      if (hiv > 0) {
+        if (noisy[i] === 0) {
+          if (noise > noiseRatioHigh) setNoisy(i, 1);
+        } else if (noise < noiseRatioLow) setNoisy(i, 0);
+      }
       const s = state[i]!;
       if (s === STATE_STEADY) {
         if (r > transientThreshold) setState(i, STATE_TRANSIENT);
@@ -475,7 +595,7 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
     let next: PlantState;
     if (keyRejected > 0) next = "blocked";
     else if (keyWarm > 0) next = "warming-up";
-    else if (keyTransient > 0) next = "transient";
+    else if (keyTransient > 0 || keyNoisy > 0) next = "transient";
     else if (!settled) next = "settling";
     else next = "pending";
 
@@ -491,7 +611,7 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
       for (let k = 0; k < accepted.length; k += 2) {
         const i = accepted[k]!;
         const x = accepted[k + 1]!;
-        if (state[i] !== STATE_STEADY) continue;
+        if (state[i] !== STATE_STEADY || noisy[i] === 1) continue;
         const c = wCount[i]! + 1;
         const d = x - wMean[i]!;
         const m = wMean[i]! + d / c;
@@ -507,9 +627,11 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
 
     const outputs: DetectorOutput[] = [];
     const blockedChanged = next === "blocked" && blockVersion !== currentBlockVersion;
-    if (next !== current.state || blockedChanged) {
+    const noisyChanged = next === "transient" && noisyVersion !== currentNoisyVersion;
+    if (next !== current.state || blockedChanged || noisyChanged) {
       current = makeVerdict(next, t, nowMs);
       currentBlockVersion = blockVersion;
+      currentNoisyVersion = noisyVersion;
       outputs.push({ kind: "verdict", verdict: current });
     }
     if (next === "steady" && !confirmed) {
@@ -532,7 +654,8 @@ export function createDetector(options: DetectorOptions, tags: readonly Detector
         tagId: tag.id,
         key: tag.key,
         state: tagState(i),
-        r: Number.isNaN(rLast[i]!) ? null : rLast[i]!,
+        r: orNull(rLast[i]!),
+        noiseRatio: orNull(noiseLast[i]!),
         lastStatus: lastStatus[i]!,
         lastTimeMs: Number.isNaN(lastTime[i]!) ? null : lastTime[i]!,
       })),

@@ -4,6 +4,7 @@ import {
   type DetectorOutput,
   type DetectorTag,
   defaultWarmupSamples,
+  noiseRatioLimit,
   RFilterBank,
   resolveDetectorOptions,
 } from "./detector.js";
@@ -342,6 +343,174 @@ describe("plant-wide verdict", () => {
   });
 });
 
+describe("noise-level test", () => {
+  const SIGMA = 0.2;
+  const NOISY_KEY: DetectorTag[] = [{ id: "TI-101", key: true, sigma: SIGMA }];
+  const fast = { steadyDurationS: 60, settleTimeS: 0 };
+
+  test("the δ² filter's σ̂²/σ² exceeds its limits about as often as their confidence says, on white noise", () => {
+    // given the default δ² factor 0.1 and 10⁶ samples of white noise at σ = 1
+    const g = gaussian(11);
+    const bank = new RFilterBank(1);
+    const hi = noiseRatioLimit(0.1, 0.999);
+    const mid = noiseRatioLimit(0.1, 0.99);
+    let aboveHi = 0;
+    let aboveMid = 0;
+    let sum = 0;
+    const n = 1_000_000;
+    for (let i = 0; i < 200; i++) bank.update(0, g());
+    // when σ̂²/σ² = δ²_f / 2 is compared with the limits at every sample
+    for (let i = 0; i < n; i++) {
+      bank.update(0, g());
+      const ratio = bank.delta2F[0]! / 2;
+      sum += ratio;
+      if (ratio > hi) aboveHi++;
+      if (ratio > mid) aboveMid++;
+    }
+    // then σ̂² is unbiased and the exceedance fractions are near 0.1 % and 1 %.
+    // Source: Cao & Rhinehart (1995), δ² estimates 2σ² under white noise (published); the limits are
+    // our three-moment χ² approximation (derived, no source), checked here by our own Monte Carlo.
+    expect(sum / n).toBeGreaterThan(0.99);
+    expect(sum / n).toBeLessThan(1.01);
+    expect(aboveHi / n).toBeGreaterThan(0.0005);
+    expect(aboveHi / n).toBeLessThan(0.002);
+    expect(aboveMid / n).toBeGreaterThan(0.007);
+    expect(aboveMid / n).toBeLessThan(0.013);
+  });
+
+  test("the χ² with the EWMA's effective sample size (2−λ)/λ alone would be far too tight, which is why three moments are matched", () => {
+    // given the limit a plain χ² with ν = (2 − λ)/λ = 19 would give at 99.9 % for λ3 = 0.1
+    const g = gaussian(12);
+    const bank = new RFilterBank(1);
+    const naive = 43.82 / 19;
+    let above = 0;
+    const n = 300_000;
+    for (let i = 0; i < 200; i++) bank.update(0, g());
+    for (let i = 0; i < n; i++) {
+      bank.update(0, g());
+      if (bank.delta2F[0]! / 2 > naive) above++;
+    }
+    // then that limit is crossed several times more often than 0.1 %, and ours lies above it.
+    // Source: Abramowitz & Stegun (1964), Handbook of Mathematical Functions, table 26.8: χ²(19) 99.9 % point 43.82 (from memory).
+    expect(above / n).toBeGreaterThan(0.004);
+    expect(noiseRatioLimit(0.1, 0.999)).toBeGreaterThan(naive);
+  });
+
+  test("white noise at the declared sigma passes the noise test at least 99 % of the time", () => {
+    for (const seed of [21, 22, 23]) {
+      // given a key tag whose white noise has exactly its declared sigma
+      const g = gaussian(seed);
+      const d = createDetector(fast, NOISY_KEY);
+      let noisy = 0;
+      const n = 100_000;
+      // when 10⁵ samples arrive
+      for (let i = 0; i < n; i++) {
+        d.observe(
+          { time: i * 1000, values: [{ tagId: "TI-101", value: 50 + SIGMA * g(), status: "good" }] },
+          0,
+        );
+        if (d.tags()[0]!.state === "noisy") noisy++;
+      }
+      // then the tag is noisy in at most 1 % of the samples (hysteresis included)
+      expect(noisy / n).toBeLessThan(0.01);
+    }
+  });
+
+  test("a burst at 3 × sigma is flagged within 2/λ3 samples, although R cannot see it", () => {
+    const delays: number[] = [];
+    let rAbove = 0;
+    let burstSamples = 0;
+    for (let seed = 100; seed < 300; seed++) {
+      // given 200 samples at the declared sigma, then white noise at 3 σ
+      const g = gaussian(seed);
+      const d = createDetector(fast, NOISY_KEY);
+      let delay = -1;
+      for (let i = 0; i < 300; i++) {
+        const sigma = i < 200 ? SIGMA : 3 * SIGMA;
+        d.observe(
+          { time: i * 1000, values: [{ tagId: "TI-101", value: 50 + sigma * g(), status: "good" }] },
+          0,
+        );
+        const tag = d.tags()[0]!;
+        if (i >= 200) {
+          burstSamples++;
+          if ((tag.r ?? 0) > d.options.transientThreshold) rAbove++;
+          if (delay < 0 && tag.state === "noisy") delay = i - 200 + 1;
+        }
+      }
+      delays.push(delay);
+    }
+    delays.sort((a, b) => a - b);
+    // then every burst is flagged: 95 % within 2/λ3 = 20 samples of its start (median 5 on these
+    // seeds), the slowest within 3/λ3
+    expect(delays[0]).toBeGreaterThan(0);
+    expect(delays[189]).toBeLessThanOrEqual(20);
+    expect(delays[199]).toBeLessThanOrEqual(30);
+    // and R alone stays above its 99 % value about as rarely as on plain white noise (a few %).
+    // Source: CHECK-VALUES §3, 99 % critical value 1.73 for λ = (0.2, 0.1, 0.1) (reproduced by Monte Carlo).
+    expect(rAbove / burstSamples).toBeLessThan(0.05);
+  });
+
+  test("a burst longer than the steady duration opens no cycle, names the tag noisy, and the tag recovers after it", () => {
+    // given a key tag steady at its sigma for 300 s, then 200 s at 4 σ, then 300 s at σ again
+    const g = gaussian(5);
+    const d = createDetector(fast, NOISY_KEY);
+    const outputs: DetectorOutput[] = [];
+    const snapshotsDuring: number[] = [];
+    for (let i = 0; i < 800; i++) {
+      const sigma = i >= 300 && i < 500 ? 4 * SIGMA : SIGMA;
+      const out = d.observe(
+        { time: i * 1000, values: [{ tagId: "TI-101", value: 50 + sigma * g(), status: "good" }] },
+        0,
+      );
+      outputs.push(...out);
+      if (i >= 300 && i < 500) snapshotsDuring.push(...out.filter((o) => o.kind === "snapshot").map(() => i));
+    }
+    // then no snapshot is made while the burst lasts, the verdict names the tag noisy with its ratio,
+    // and after the burst a new cycle opens again
+    expect(snapshotsDuring).toEqual([]);
+    const verdicts = outputs.flatMap((o) => (o.kind === "verdict" ? [o.verdict] : []));
+    const noisy = verdicts.find((v) => v.notSteady.some((t) => t.state === "noisy"));
+    expect(noisy?.state).toBe("transient");
+    expect(noisy?.notSteady[0]?.noiseRatio).toBeGreaterThan(d.options.noiseRatioHigh);
+    const snaps = outputs.flatMap((o) => (o.kind === "snapshot" ? [o.snapshot] : []));
+    expect(snaps.some((s) => s.startMs >= 500_000)).toBe(true);
+    expect(snaps.some((s) => s.endMs < 300_000)).toBe(true);
+  });
+
+  test("a non-key noisy tag is left out of the snapshot with the reason", () => {
+    // given a quiet key tag and a non-key tag at 5 × its sigma
+    const g = gaussian(8);
+    const d = createDetector(fast, [
+      { id: "TI-101", key: true, sigma: SIGMA },
+      { id: "FI-9", key: false, sigma: 0.1 },
+    ]);
+    const snaps: DetectorOutput[] = [];
+    for (let i = 0; i < 300; i++) {
+      const values = [
+        { tagId: "TI-101", value: 50 + SIGMA * g(), status: "good" },
+        { tagId: "FI-9", value: 3 + 0.5 * g(), status: "good" },
+      ];
+      snaps.push(...d.observe({ time: i * 1000, values }, 0).filter((o) => o.kind === "snapshot"));
+    }
+    // then the snapshot holds the key tag and explains why the other is missing
+    const s = snaps[0];
+    expect(s?.kind).toBe("snapshot");
+    if (s?.kind !== "snapshot") return;
+    expect(s.snapshot.tags.map((t) => t.tagId)).toEqual(["TI-101"]);
+    expect(s.snapshot.excluded[0]?.tagId).toBe("FI-9");
+    expect(s.snapshot.excluded[0]?.reason).toMatch(/^noisy: σ̂²\/σ² = /);
+  });
+
+  test("a tag without a declared sigma gets no noise test", () => {
+    const g = gaussian(9);
+    const d = createDetector(fast, ONE_KEY);
+    feed(d, 200, () => 50 + 10 * g());
+    expect(d.tags()[0]?.noiseRatio).toBeNull();
+    expect(d.tags()[0]?.state).not.toBe("noisy");
+  });
+});
+
 describe("configuration", () => {
   test("refuses a tag list without a key tag, or with a repeated id", () => {
     expect(() => createDetector({}, [{ id: "a", key: false }])).toThrow(SteadyError);
@@ -360,5 +529,9 @@ describe("configuration", () => {
     expect(() => resolveDetectorOptions({ steadyThreshold: 2, transientThreshold: 1.5 })).toThrow(
       /transientThreshold/,
     );
+    expect(() => resolveDetectorOptions({ noiseConfidence: 0.99, noiseClearConfidence: 0.999 })).toThrow(
+      /noiseClearConfidence/,
+    );
+    expect(() => resolveDetectorOptions({ noiseConfidence: 1 })).toThrow(/noiseConfidence/);
   });
 });

@@ -15,6 +15,7 @@ import { loadSiteModelFile, type SiteModel, type SteadyStatePolicy } from "../mo
 import type { SteadyConfig, SteadyOptions } from "./config.js";
 import {
   createDetector,
+  type Detector,
   type DetectorBatch,
   type DetectorOptions,
   type DetectorValue,
@@ -47,7 +48,10 @@ const R99 = 1.73;
  */
 export function detectorOptions(
   policy: Readonly<SteadyStatePolicy>,
-  own: Pick<SteadyOptions, "transientThreshold" | "warmupSamples" | "minSnapshotSamples">,
+  own: Pick<
+    SteadyOptions,
+    "transientThreshold" | "warmupSamples" | "minSnapshotSamples" | "noiseConfidence" | "noiseClearConfidence"
+  >,
 ): { options: DetectorOptions; warnings: string[] } {
   const warnings: string[] = [];
   const steadyThreshold = policy.rCritical;
@@ -61,6 +65,8 @@ export function detectorOptions(
     settleTimeS: policy.settleTimeS,
     minSnapshotSamples: own.minSnapshotSamples,
   };
+  if (own.noiseConfidence !== undefined) options.noiseConfidence = own.noiseConfidence;
+  if (own.noiseClearConfidence !== undefined) options.noiseClearConfidence = own.noiseClearConfidence;
   if (own.warmupSamples !== undefined) options.warmupSamples = own.warmupSamples;
   if (policy.keyTagFraction < 1) {
     warnings.push(
@@ -75,6 +81,18 @@ export function detectorOptions(
  * A value without a number (null) reaches the detector as NaN with its status, so it is rejected there.
  */
 export function detectorBatches(values: Measurements["values"]): DetectorBatch[] {
+  // Most batches carry one sample time: skip the grouping then.
+  const t0 = values[0].time;
+  let oneTime = true;
+  for (let k = 1; k < values.length && oneTime; k++) oneTime = values[k]!.time === t0;
+  if (oneTime) {
+    const list: DetectorValue[] = new Array(values.length);
+    for (let k = 0; k < values.length; k++) {
+      const v = values[k]!;
+      list[k] = { tagId: v.tag, value: v.value ?? Number.NaN, status: v.status ?? "good" };
+    }
+    return [{ time: t0, values: list }];
+  }
   const byTime = new Map<number, DetectorValue[]>();
   for (const v of values) {
     const list = byTime.get(v.time) ?? [];
@@ -97,9 +115,12 @@ export function verdictData(v: PlantVerdict): SteadyVerdict {
     settleUntilMs: ms(v.settleUntilMs),
     blockedBy: v.blockedBy.slice(0, 1000).map((b) => ({ tag: b.tagId, status: b.status.slice(0, 40) })),
     // R is +∞ when a tag moved with no successive-difference variance yet: no finite number to report.
-    notSteady: v.notSteady
-      .slice(0, 1000)
-      .map((t) => ({ tag: t.tagId, state: t.state, r: t.r !== null && Number.isFinite(t.r) ? t.r : null })),
+    notSteady: v.notSteady.slice(0, 1000).map((t) => ({
+      tag: t.tagId,
+      state: t.state,
+      r: t.r !== null && Number.isFinite(t.r) ? t.r : null,
+      noiseRatio: t.noiseRatio !== null && Number.isFinite(t.noiseRatio) ? t.noiseRatio : null,
+    })),
   };
   const decided = ms(v.decidedAtMs);
   if (decided !== null) out.decidedAtMs = decided;
@@ -140,15 +161,36 @@ export function snapshotData(s: Snapshot, model: SiteModel): SnapshotData {
   };
 }
 
+/**
+ * The detector steady runs for a site model and steady's options: key tags, declared sigmas (noise
+ * test, unless `noiseTest` is false) and the steadyState policy. Offline tools (a CSV replay) use it to
+ * judge data exactly as the service does. Throws STEADY_TAGS_INVALID when the model has no key tag.
+ */
+export function siteDetector(
+  model: SiteModel,
+  own: Pick<
+    SteadyOptions,
+    | "transientThreshold"
+    | "warmupSamples"
+    | "minSnapshotSamples"
+    | "noiseConfidence"
+    | "noiseClearConfidence"
+    | "noiseTest"
+  >,
+): { detector: Detector; warnings: string[] } {
+  const { options, warnings } = detectorOptions(model.steadyState, own);
+  const detector = createDetector(
+    options,
+    model.tags.map((t) => ({ id: t.id, key: t.key, ...(own.noiseTest ? { sigma: t.sigma } : {}) })),
+  );
+  return { detector, warnings };
+}
+
 /** Starts steady. Throws on a bad site model (no key tag: STEADY_TAGS_INVALID) or when the broker cannot be reached. */
 export async function start(config: Readonly<SteadyConfig>, deps: SteadyDeps = {}): Promise<SteadyService> {
   const o = config.steady;
   const model = deps.model ?? (await loadSiteModelFile(o.siteModelFile));
-  const { options, warnings } = detectorOptions(model.steadyState, o);
-  const detector = createDetector(
-    options,
-    model.tags.map((t) => ({ id: t.id, key: t.key })),
-  );
+  const { detector, warnings } = siteDetector(model, o);
   const rt = await startRuntime("steady", config, deps);
   for (const w of warnings) rt.log.warn(w);
 

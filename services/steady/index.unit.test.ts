@@ -73,8 +73,14 @@ describe("steady wiring helpers", () => {
       steadySinceMs: null,
       settleUntilMs: null,
       blockedBy: [],
-      notSteady: [{ tagId: "TI-102", state: "transient", r: Number.POSITIVE_INFINITY }],
+      notSteady: [
+        { tagId: "TI-102", state: "transient", r: Number.POSITIVE_INFINITY, noiseRatio: null },
+        { tagId: "FI-101", state: "noisy", r: 1.1, noiseRatio: 7.5 },
+      ],
     });
-    expect(v.notSteady).toEqual([{ tag: "TI-102", state: "transient", r: null }]);
+    expect(v.notSteady).toEqual([
+      { tag: "TI-102", state: "transient", r: null, noiseRatio: null },
+      { tag: "FI-101", state: "noisy", r: 1.1, noiseRatio: 7.5 },
+    ]);
   });
 });
