@@ -182,7 +182,7 @@ function jacobiSvd(a: Float64Array, n: number, v: Float64Array): Float64Array {
 
 /**
  * Statistics of the fit of `problem` at p (usually `levenbergMarquardt(...).p`). Evaluates the residuals
- * and the Jacobian once (central differences when the problem has none).
+ * and the Jacobian once (`jacobian`, else the fused `evaluate`, else central differences).
  * Throws `EstimateError` ESTIMATE_NO_DEGREES_OF_FREEDOM when m ≤ n, ESTIMATE_NON_FINITE when the
  * residuals or the Jacobian are not finite at p.
  */
@@ -218,8 +218,14 @@ export function fitStatistics(
   const r = new Float64Array(m);
   const jac = new Float64Array(m * n);
   problem.residuals(x, r);
-  if (problem.jacobian) problem.jacobian(x, jac);
-  else {
+  if (problem.jacobian || problem.evaluate) {
+    const target = problem.jacobianColumnMajor ? new Float64Array(m * n) : jac;
+    if (problem.jacobian) problem.jacobian(x, target);
+    else problem.evaluate?.(x, r, target);
+    if (problem.jacobianColumnMajor) {
+      for (let j = 0; j < n; j++) for (let i = 0; i < m; i++) jac[i * n + j] = target[j * m + i] as number;
+    }
+  } else {
     const fd: { method: "forward" | "central"; lower?: Float64Array; upper?: Float64Array } = {
       method: options.finiteDifference ?? "central",
     };

@@ -184,6 +184,28 @@ describe("identifiability and failures", () => {
     );
   });
 
+  test("a column-major Jacobian gives the certified Misra1a standard deviations to 6 digits", () => {
+    // given Misra1a whose Jacobian callback writes by columns (out[j·m + i])
+    const set = loadNistSet("Misra1a");
+    const base = nistProblem(set);
+    const rows = new Float64Array(base.m * 2);
+    const columns: LmProblem = {
+      ...base,
+      jacobianColumnMajor: true,
+      jacobian(p, out) {
+        base.jacobian?.(p, rows);
+        for (let i = 0; i < base.m; i++)
+          for (let j = 0; j < 2; j++) out[j * base.m + i] = rows[i * 2 + j] as number;
+      },
+    };
+    // when
+    const stats = fitStatistics(columns, set.certified.parameters);
+    // then
+    // Source: NIST Statistical Reference Datasets, Nonlinear Regression, Misra1a, certified values (published)
+    expect(significantDigits(stats.standardErrors[0] as number, 2.7070075241)).toBeGreaterThanOrEqual(6);
+    expect(significantDigits(stats.standardErrors[1] as number, 7.2668688436e-6)).toBeGreaterThanOrEqual(6);
+  });
+
   test("without an analytic Jacobian, central differences give the certified Misra1a sd to 6 digits", () => {
     const set = loadNistSet("Misra1a");
     const { jacobian: _analytic, ...numeric } = nistProblem(set);

@@ -148,6 +148,67 @@ describe("LP and MILP", () => {
     }
   });
 
+  test("a kept model re-solved after bound and limit changes equals a fresh solve, sent in one batch", () => {
+    // given the blend kept in HiGHS, then every bound re-stated unchanged and two really changed
+    const lp = createHighsLp(highs, blend);
+    try {
+      const cold = lp.solve();
+      for (const v of blend.variables)
+        lp.setVariableBounds(v.name, v.lb ?? 0, v.ub ?? Number.POSITIVE_INFINITY);
+      const same = lp.solve();
+      lp.setVariableBounds("crudeA", 0, 40);
+      lp.setConstraintLimits("sulfur", Number.NEGATIVE_INFINITY, 110);
+      // when
+      const warm = lp.solve();
+      // then
+      const changed: LpProblem = {
+        ...blend,
+        variables: blend.variables.map((v) => (v.name === "crudeA" ? { ...v, ub: 40 } : v)),
+        constraints: blend.constraints.map((c) => (c.name === "sulfur" ? { ...c, ub: 110 } : c)),
+      };
+      const fresh = solveLpHighs(highs, changed);
+      expect(same.objective).toBe(cold.objective);
+      expect(same.iterations).toBe(0);
+      expect(warm.objective).toBeCloseTo(fresh.objective, 9);
+      for (const [name, x] of Object.entries(fresh.values)) expect(warm.values[name]).toBeCloseTo(x, 9);
+    } finally {
+      lp.dispose();
+    }
+  });
+
+  test("a warm re-solve after a small cost change needs fewer simplex iterations than the cold solve", () => {
+    // given a 40-variable LP (invented: a knapsack-like cover with a cost per unit of each variable)
+    const n = 40;
+    const variables = Array.from({ length: n }, (_, j) => ({
+      name: `x${j}`,
+      cost: 1 + ((j * 7) % 11) / 10,
+      ub: 5,
+    }));
+    const constraints = Array.from({ length: 20 }, (_, i) => ({
+      name: `c${i}`,
+      coeffs: Object.fromEntries([0, 1, 2, 3].map((k) => [`x${(i * 3 + k * 7) % n}`, 1 + k])),
+      lb: 4 + (i % 5),
+    }));
+    const p: LpProblem = { sense: "min", variables, constraints };
+    const lp = createHighsLp(highs, p);
+    try {
+      const cold = lp.solve();
+      // when one cost moves by 3 %
+      lp.setCosts({ x5: (variables[5]?.cost ?? 0) * 1.03 });
+      const warm = lp.solve();
+      // then the kept basis is reused (HiGHS's own count) and the optimum equals a fresh solve's
+      const fresh = solveLpHighs(highs, {
+        ...p,
+        variables: variables.map((v) => (v.name === "x5" ? { ...v, cost: v.cost * 1.03 } : v)),
+      });
+      expect(cold.iterations).toBeGreaterThan(0);
+      expect(warm.iterations).toBeLessThan(cold.iterations ?? 0);
+      expect(warm.objective).toBeCloseTo(fresh.objective, 9);
+    } finally {
+      lp.dispose();
+    }
+  });
+
   test("both solvers report an infeasible problem as infeasible", () => {
     const p: LpProblem = {
       sense: "min",
