@@ -7,8 +7,9 @@
  * mathjs scope (about 44×, measured on this machine, Node 20). Only whitelisted nodes are emitted and
  * numbers are printed by `String(number)`, so no text from the file ever reaches `new Function`.
  */
-import type { MathJsInstance, MathNode } from "mathjs";
+
 import type { SiteModelCode } from "./errors.js";
+import type { MathJsInstance, MathNode } from "./mathjs.js";
 import { formatDims, isDimensionless, sameDims, sameScale, type UnitInfo } from "./units.js";
 
 /** A problem found in one expression; the loader adds file, line and JSON path. */

@@ -14,6 +14,7 @@ export { STEADY_STATE_DEFAULTS, VALIDATION_DEFAULTS } from "./document.js";
 export { MODEL_ERROR_CODES, type SiteModelCode, SiteModelError, type SourceSpot } from "./errors.js";
 export { loadSiteModel, loadSiteModelFile, MAX_SITE_MODEL_BYTES, siteModelValidator } from "./load.js";
 export { luFactor, luSolve } from "./lu.js";
+export { type MathNode, parse as parseExpression } from "./mathjs.js";
 export {
   type Affine,
   BLOCKS,

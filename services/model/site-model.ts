@@ -3,7 +3,7 @@
  * symbols, tags, bounds, units, squareness, structure), then residuals, outputs, objective and
  * constraints with their symbolic derivatives compiled once to closures over one Float64Array.
  */
-import type { MathNode } from "mathjs";
+
 import {
   type SiteModelDocument,
   STEADY_STATE_DEFAULTS,
@@ -30,6 +30,7 @@ import {
   symbolsOf,
   type VectorFn,
 } from "./expr.js";
+import type { MathNode } from "./mathjs.js";
 import { affineConversion, newMath, parseUnit, sameDims, sameScale, type UnitInfo } from "./units.js";
 
 /** Blocks of the symbol-value vector, in slot order. */

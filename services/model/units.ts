@@ -2,7 +2,7 @@
  * Unit strings → dimension vectors, on a per-model mathjs instance (createUnit mutates the instance,
  * so one model's currencies never leak into another's).
  */
-import { all, create, type FactoryFunctionMap, type MathJsInstance } from "mathjs";
+import { all, create, type FactoryFunctionMap, type MathJsInstance } from "./mathjs.js";
 
 /** A fresh mathjs instance (about 3 ms): one per model, since createUnit mutates the instance. */
 export function newMath(): MathJsInstance {

@@ -10,9 +10,9 @@
  * cycles and re-solved warm when only costs and limits changed. Every other site goes to SQP.
  */
 import type { Highs } from "highs";
-import { type MathNode, parse as parseExpression } from "mathjs";
 import type { Proposal } from "../kit/generated/messages.js";
 import type { SiteModel } from "../model/index.js";
+import { type MathNode, parseExpression } from "../model/index.js";
 import type { OptimizeErrorCode } from "./errors.js";
 import { createHighsLp, type HighsLp, type LpProblem, type LpResult, solveLpHighs, solveLpJs } from "./lp.js";
 import {
