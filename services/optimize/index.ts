@@ -135,6 +135,23 @@ export async function start(config: Readonly<OptimizeConfig>, deps: OptimizeDeps
       takePrices(event.data);
     }),
   );
+  // The setpoints the control side holds, by decision symbol in model units. The move box and the
+  // operating points of modifier adaptation are centred on them rather than on the measured means:
+  // validate checks moves against the same setpoints, and a noisy PV must not make two identical
+  // operating points look like two different ones to the plant-gradient estimate.
+  const inForce = new Map<string, number>();
+  const bySetpointTag = new Map(model.decisions.map((d) => [d.setpointTag, d]));
+  rt.track(
+    await rt.events.on(rt.events.subject("readback"), ["rto.readback.v1"], (event) => {
+      for (const sp of event.data.setpoints) {
+        const d = bySetpointTag.get(sp.tag) ?? bySetpointTag.get(sp.tag.replace(/\.SP$/, ""));
+        const unit = d ? modelUnits.get(d.symbol) : undefined;
+        if (!d || unit === undefined) continue;
+        const conv = converter(math, sp.unit, unit);
+        if (conv && Number.isFinite(sp.target)) inForce.set(d.symbol, conv(sp.target));
+      }
+    }),
+  );
   rt.track(
     await rt.events.on(rt.events.subject("snapshot"), ["rto.snapshot.v1"], (event) => {
       latestSnapshot = event;
@@ -190,11 +207,13 @@ export async function start(config: Readonly<OptimizeConfig>, deps: OptimizeDeps
         );
         return;
       }
+      const current = { ...op.current };
+      for (const [symbol, value] of inForce) current[symbol] = value;
       const context: OperatingContext = {
         parameters: { ...parameters },
         prices: { ...prices },
         disturbances: op.disturbances,
-        current: op.current,
+        current,
       };
       const result = runOptimization(
         {
