@@ -370,7 +370,15 @@ export function estimateParameters(
   let lm: LmResult;
   let stats: FitStatistics;
   try {
-    lm = levenbergMarquardt(problem, q0, { maxIterations: options.maxIterations ?? 100 });
+    // The residuals come from Newton solves converged to about 1e-10, so the NIST-grade defaults
+    // (xtol 1e-12, gtol 1e-13) would only run out the iteration budget chasing solver noise; ten
+    // digits in the scaled parameters is still far below their standard deviations.
+    lm = levenbergMarquardt(problem, q0, {
+      maxIterations: options.maxIterations ?? 100,
+      xtol: 1e-10,
+      gtol: 1e-10,
+      ftol: 1e-12,
+    });
     if (lm.reason === "non-finite-start")
       throw new Error(`no finite residuals (${lastSolveFailure || "non-finite Jacobian"})`);
     stats = fitStatistics(problem, lm.p, {
