@@ -218,7 +218,7 @@ describe("recorder", () => {
 
     // and recompute, fed from the record, reproduces the proposal to solver tolerance
     const r = await rec.recompute(cycleid, optimize, { tolerance: 1e-6 });
-    expect(r.sources).toEqual({ parameters: "model", prices: "prices", current: "snapshot" });
+    expect(r.sources).toEqual({ parameters: "model", prices: "prices", current: "proposal" });
     expect(r.agrees).toBe(true);
     expect(r.maxAbsDiff).toBeLessThan(1e-6);
     expect(Math.abs(r.objective.diff)).toBeLessThan(1e-6 * Math.max(1, Math.abs(r.objective.recorded)));

@@ -24,7 +24,7 @@ export interface RecomputeInputs {
   prices: Record<string, number>;
   /** Snapshot means in model units by model symbol (decisions, disturbances, outputs measured). */
   measured: Record<string, number>;
-  /** Current decisions: the snapshot's mean where measured, else the proposal's current. */
+  /** Current decisions: the proposal's (the setpoints in force it was centred on), else the snapshot's mean. */
   current: Record<string, number>;
   /** The recorded proposal (for its decisions, formulation and mismatch method). */
   recorded: Proposal;
@@ -103,12 +103,17 @@ export function recordedInputs(store: EventStore, cycleid: string): RecomputeInp
   ).map(obj)) {
     if (typeof t.variable === "string" && typeof t.modelMean === "number") measured[t.variable] = t.modelMean;
   }
+  // The optimizer centres its move box on the setpoints the control side held (the readbacks), and
+  // reports them as each setpoint's `current`; the snapshot's PV mean is only the fallback.
   const current: Record<string, number> = {};
   let fromSnapshot = 0;
   for (const sp of recorded.setpoints) {
     const m = measured[sp.decision];
-    if (m !== undefined) fromSnapshot++;
-    current[sp.decision] = m ?? sp.current;
+    if (Number.isFinite(sp.current)) current[sp.decision] = sp.current;
+    else if (m !== undefined) {
+      current[sp.decision] = m;
+      fromSnapshot++;
+    }
   }
   const currentSource =
     fromSnapshot === recorded.setpoints.length ? "snapshot" : fromSnapshot === 0 ? "proposal" : "mixed";
@@ -187,9 +192,9 @@ export async function recompute(
     notes.push("no model event recorded for the cycle: parameters taken from the proposal");
   if (inputs.sources.prices === "proposal")
     notes.push("no prices event recorded: prices taken from the proposal");
-  if (inputs.sources.current !== "snapshot")
+  if (inputs.sources.current !== "proposal")
     notes.push(
-      `current decisions from the ${inputs.sources.current === "mixed" ? "snapshot where measured, else the proposal" : "proposal"}`,
+      `current decisions from the ${inputs.sources.current === "mixed" ? "proposal where it reports them, else the snapshot" : "snapshot"}`,
     );
   return {
     cycleid,

@@ -287,17 +287,18 @@ describe("recompute", () => {
       optimize: (inp) => {
         seen.push({ p: inp.parameters, pr: inp.prices, cur: inp.current, src: inp.sources });
         return proposalData(
-          2.4 + (inp.parameters.k === 0.8 && inp.prices.pF === 10 && inp.current.F === 2.05 ? 0 : 1),
+          2.4 + (inp.parameters.k === 0.8 && inp.prices.pF === 10 && inp.current.F === 2 ? 0 : 1),
         );
       },
     });
-    // then it saw the model's parameters, the prices in force and the snapshot's operating point
+    // then it saw the model's parameters, the prices in force and the setpoints the proposal was
+    // centred on (the setpoints in force), not the snapshot's noisier PV mean
     expect(seen).toEqual([
       {
         p: { k: 0.8 },
         pr: { pF: 10 },
-        cur: { F: 2.05 },
-        src: { parameters: "model", prices: "prices", current: "snapshot" },
+        cur: { F: 2 },
+        src: { parameters: "model", prices: "prices", current: "proposal" },
       },
     ]);
     expect(r.agrees).toBe(true);
