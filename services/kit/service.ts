@@ -3,7 +3,7 @@
  * health endpoints, metrics, and a stop() that drains handlers before it closes the connection.
  */
 import type { Bus, Subscription } from "./bus.js";
-import { type Clock, systemClock } from "./clock.js";
+import { type Clock, ScaledClock, systemClock } from "./clock.js";
 import type { BaseConfig } from "./config.js";
 import { connectBus } from "./connect.js";
 import { createEvent, type Emitter, encodeEvent } from "./envelope.js";
@@ -63,6 +63,10 @@ export async function startRuntime(
   const metrics = createMetrics(name, { processMetrics: true });
   const emitter: Emitter = { site: config.site, service: name, instance: config.instance, clock, registry };
   const heartbeatSubject = subject(config.site, `heartbeat.${name}`);
+  // The timer runs on the wall clock, the envelope's time on the service clock: on an accelerated
+  // clock the next heartbeat is due `scale` times later in event time, and readers judge staleness
+  // in event time.
+  const intervalS = config.heartbeatS * (clock instanceof ScaledClock ? clock.scale : 1);
   const startedAt = clock.now();
   let seq = 0;
   const heartbeat = (status: "starting" | "running" | "stopping" | "lost") =>
@@ -70,7 +74,7 @@ export async function startRuntime(
       service: name,
       instance: config.instance,
       status,
-      intervalS: config.heartbeatS,
+      intervalS: Math.min(3600, intervalS),
       uptimeS: Math.max(0, (clock.now() - startedAt) / 1000),
       seq: seq++,
       counts: { ...events.counts },
@@ -79,7 +83,7 @@ export async function startRuntime(
     service: name,
     instance: config.instance,
     status: "lost",
-    intervalS: config.heartbeatS,
+    intervalS: Math.min(3600, intervalS),
   });
   const ownsBus = !deps.bus;
   const bus =

@@ -1,0 +1,143 @@
+/**
+ * The one-command demo, seen through the console in a real browser: the suite of cli/demo.ts in
+ * advisory mode (every service, the plant and the price feed on an embedded MQTT broker), Chromium
+ * from the machine's packages. Waits for the loop's first proposal to reach the approval queue,
+ * approves it as the demo's generated user, and sees the signed command and the plant's readback.
+ * Then explains that cycle from the recorder's audit database and re-computes its proposal offline.
+ * Leaves test-artifacts/demo-console.png (the README's picture).
+ */
+import { existsSync, mkdirSync, mkdtempSync, rmSync } from "node:fs";
+import { tmpdir } from "node:os";
+import { join } from "node:path";
+import { type BrowserContext, chromium, type Page } from "playwright-core";
+import { afterAll, describe, expect, it } from "vitest";
+import type { DemoConfig } from "../cli/demo.js";
+import { loadSiteModelFile } from "../services/model/index.js";
+import { optimizeOffline } from "../services/optimize/stage.js";
+import type { RecorderService } from "../services/recorder/index.js";
+import type { OptimizeFn } from "../services/recorder/recompute.js";
+import { waitFor } from "./support/brokers.js";
+import { type Loop, startLoop } from "./support/loop.js";
+
+const CHROMIUM = "/usr/bin/chromium";
+const ARTIFACTS = join(import.meta.dirname, "..", "test-artifacts");
+
+describe("the demo in a browser", () => {
+  const cleanup: Array<() => Promise<void> | void> = [];
+  afterAll(async () => {
+    for (const c of cleanup.splice(0).reverse()) await c();
+  });
+
+  it("an operator approves the demo's first proposal and sees the command and the plant's readback", async () => {
+    expect(existsSync(CHROMIUM), `${CHROMIUM} is missing: apt-get install chromium`).toBe(true);
+    const loop: Loop = await startLoop((base: Readonly<DemoConfig>) => ({
+      ...base,
+      logLevel: "warn",
+      console: { host: "127.0.0.1", port: 0 },
+    }));
+    cleanup.push(() => loop.stop());
+    const { consoleUrl, consoleUser } = loop.suite;
+    expect(consoleUrl).toBeDefined();
+    expect(consoleUser).toBeDefined();
+
+    // The loop's first validated proposal waits for an operator (advisory mode, the default).
+    const validatedMs = await loop.suite.firstValidated;
+    const awaiting = loop.ofType("rto.validation.v1").find((v) => v.data.next === "await-approval");
+    expect(awaiting, "a validated proposal waiting for approval").toBeDefined();
+    const proposalId = awaiting?.data.proposalId ?? "";
+    console.log(`first validated proposal after ${(validatedMs / 1000).toFixed(1)} s of wall time`);
+
+    const profile = mkdtempSync(join(tmpdir(), "sf-chromium-"));
+    cleanup.push(() => rmSync(profile, { recursive: true, force: true }));
+    const context: BrowserContext = await chromium.launchPersistentContext(profile, {
+      executablePath: CHROMIUM,
+      headless: true,
+      viewport: { width: 1440, height: 1000 },
+      args: [
+        "--headless",
+        "--no-sandbox",
+        "--disable-gpu",
+        "--disable-quic",
+        "--no-first-run",
+        "--disable-background-networking",
+        "--disable-component-update",
+        "--disable-sync",
+      ],
+    });
+    cleanup.push(() => context.close());
+    const page: Page = context.pages()[0] ?? (await context.newPage());
+    await page.goto(consoleUrl as string);
+    await expect.poll(() => page.locator(".cautions").textContent()).toMatch(/not a safety system/);
+
+    const card = page.locator(`[data-proposal="${proposalId}"]`);
+    await card.waitFor({ state: "visible", timeout: 30_000 });
+    await page.fill("#login-user", consoleUser?.username ?? "");
+    await page.fill("#login-password", consoleUser?.password ?? "");
+    await page.click("#login-form button[type=submit]");
+    await page.locator("#who-name", { hasText: consoleUser?.username ?? "" }).waitFor({ timeout: 10_000 });
+    await card.locator("input.reason").fill("moves checked against the panel limits");
+    await card.locator("button.approve").click();
+
+    // The approval travels to validate, which signs and sends the command; the plant answers.
+    const command = page.locator("#control-body tr.command").first();
+    await command.waitFor({ timeout: 60_000 });
+    expect(await command.textContent()).toMatch(/advisory-approved/);
+    const readback = page.locator("#control-body tr.readback", { hasText: "accepted" }).first();
+    await readback.waitFor({ timeout: 60_000 });
+    const approvals = loop.ofType("rto.operator-approval.v1");
+    expect(approvals.map((a) => [a.data.proposalId, a.data.decision, a.data.user])).toContainEqual([
+      proposalId,
+      "approve",
+      consoleUser?.username,
+    ]);
+    // Advisory mode: nothing went to the plant before the operator's approval.
+    const firstApproval = loop.events.findIndex((e) => e.type === "rto.operator-approval.v1");
+    const firstCommand = loop.events.findIndex((e) => e.type === "rto.command.v1");
+    expect(firstApproval).toBeGreaterThanOrEqual(0);
+    expect(firstCommand).toBeGreaterThan(firstApproval);
+    const accepted = loop
+      .ofType("rto.readback.v1")
+      .filter((r) => r.data.trigger === "command" && r.data.accepted === true);
+    expect(accepted.length).toBeGreaterThanOrEqual(1);
+
+    // The audit trail: the recorder explains the cycle, and its proposal is re-computed offline from
+    // the record (the first cycle carries no modifiers yet, so the re-run must agree exactly).
+    const cycleid = awaiting?.cycleid ?? "";
+    const recorder = loop.suite.services.find((s) => s.name === "recorder")?.service as RecorderService;
+    expect(
+      await waitFor(() => {
+        const e = recorder.explain(cycleid);
+        return e.found && !e.missing.includes("readback");
+      }, 20_000),
+    ).toBe(true);
+    const explanation = recorder.explain(cycleid);
+    expect(explanation.missing).toEqual([]);
+    expect(explanation.text).toMatch(/proposal/i);
+    expect(explanation.text).toMatch(/command/i);
+    const model = await loadSiteModelFile(
+      new URL("../infra/sites/kestrel-r1/site.yaml", import.meta.url).pathname,
+    );
+    const optimize: OptimizeFn = async (inp) => {
+      const disturbances = Object.fromEntries(
+        model.disturbances
+          .filter((d) => inp.measured[d.symbol] !== undefined)
+          .map((d) => [d.symbol, inp.measured[d.symbol] as number]),
+      );
+      const r = await optimizeOffline({
+        model,
+        parameters: inp.parameters,
+        prices: inp.prices,
+        current: inp.current,
+        disturbances,
+      });
+      return r.status === "proposed" ? r.proposal : undefined;
+    };
+    const again = await recorder.recompute(cycleid, optimize, { tolerance: 1e-5 });
+    expect(again.recorded.mismatch.updated).toBe(false);
+    expect(again.agrees, JSON.stringify(again.setpoints)).toBe(true);
+
+    mkdirSync(ARTIFACTS, { recursive: true });
+    await page.waitForTimeout(1500);
+    await page.screenshot({ path: join(ARTIFACTS, "demo-console.png"), fullPage: true });
+  });
+});
