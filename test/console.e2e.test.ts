@@ -8,7 +8,7 @@
 import { existsSync, mkdirSync, mkdtempSync, rmSync } from "node:fs";
 import { tmpdir } from "node:os";
 import { join } from "node:path";
-import { type BrowserContext, chromium, type Page } from "playwright-core";
+import type { Page } from "playwright-core";
 import { afterAll, describe, expect, it } from "vitest";
 import { type ConsoleConfig, consoleConfigSchema } from "../services/console/config.js";
 import { type ConsoleService, readUsersFile, start } from "../services/console/index.js";
@@ -30,8 +30,8 @@ import { connectMqtt } from "../services/kit/mqtt.js";
 import { schemaRegistry } from "../services/kit/schemas.js";
 import { subject } from "../services/kit/subjects.js";
 import { mqttUrl, stopOwnBrokers, testSite, waitFor } from "./support/brokers.js";
+import { launchChromium } from "./support/browser.js";
 
-const CHROMIUM = "/usr/bin/chromium";
 const ARTIFACTS = join(import.meta.dirname, "..", "test-artifacts");
 const USERS_FILE = join(import.meta.dirname, "..", "infra", "sites", "kestrel-r1", "users.example.yaml");
 
@@ -48,7 +48,6 @@ describe("the operator console in a browser", () => {
   });
 
   it("shows a waiting proposal, records an operator's approval, then shows the command and its readback", async () => {
-    expect(existsSync(CHROMIUM), `${CHROMIUM} is missing: apt-get install chromium`).toBe(true);
     const site = testSite("console-e2e");
     const url = await mqttUrl();
     const registry = schemaRegistry();
@@ -332,24 +331,9 @@ describe("the operator console in a browser", () => {
     expect(await waitFor(() => service.view.isPending(proposal.id, Date.now()), 10_000)).toBe(true);
 
     // ---- the browser ----
-    const profile = mkdtempSync(join(tmpdir(), "sf-chromium-"));
-    cleanup.push(() => rmSync(profile, { recursive: true, force: true }));
-    const context: BrowserContext = await chromium.launchPersistentContext(profile, {
-      executablePath: CHROMIUM,
-      headless: true,
-      viewport: { width: 1440, height: 1000 },
-      args: [
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--disable-quic",
-        "--no-first-run",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-      ],
-    });
-    cleanup.push(() => context.close());
+    const browser = await launchChromium();
+    cleanup.push(() => browser.close());
+    const context = browser.context;
     const page: Page = context.pages()[0] ?? (await context.newPage());
     const consoleErrors: string[] = [];
     page.on("pageerror", (err) => consoleErrors.push(err.message));

@@ -6,20 +6,18 @@
  * Then explains that cycle from the recorder's audit database and re-computes its proposal offline.
  * Leaves test-artifacts/demo-console.png (the README's picture).
  */
-import { existsSync, mkdirSync, mkdtempSync, rmSync } from "node:fs";
-import { tmpdir } from "node:os";
+import { mkdirSync } from "node:fs";
 import { join } from "node:path";
-import { type BrowserContext, chromium, type Page } from "playwright-core";
+import type { Page } from "playwright-core";
 import { afterAll, describe, expect, it } from "vitest";
 import type { DemoConfig } from "../cli/demo.js";
 import { loadSiteModelFile } from "../services/model/index.js";
-import { optimizeOffline } from "../services/optimize/stage.js";
 import type { RecorderService } from "../services/recorder/index.js";
-import type { OptimizeFn } from "../services/recorder/recompute.js";
 import { waitFor } from "./support/brokers.js";
+import { launchChromium } from "./support/browser.js";
 import { type Loop, startLoop } from "./support/loop.js";
+import { offlineOptimizer } from "./support/offline-optimizer.js";
 
-const CHROMIUM = "/usr/bin/chromium";
 const ARTIFACTS = join(import.meta.dirname, "..", "test-artifacts");
 
 describe("the demo in a browser", () => {
@@ -29,7 +27,6 @@ describe("the demo in a browser", () => {
   });
 
   it("an operator approves the demo's first proposal and sees the command and the plant's readback", async () => {
-    expect(existsSync(CHROMIUM), `${CHROMIUM} is missing: apt-get install chromium`).toBe(true);
     const loop: Loop = await startLoop((base: Readonly<DemoConfig>) => ({
       ...base,
       logLevel: "warn",
@@ -47,24 +44,9 @@ describe("the demo in a browser", () => {
     const proposalId = awaiting?.data.proposalId ?? "";
     console.log(`first validated proposal after ${(validatedMs / 1000).toFixed(1)} s of wall time`);
 
-    const profile = mkdtempSync(join(tmpdir(), "sf-chromium-"));
-    cleanup.push(() => rmSync(profile, { recursive: true, force: true }));
-    const context: BrowserContext = await chromium.launchPersistentContext(profile, {
-      executablePath: CHROMIUM,
-      headless: true,
-      viewport: { width: 1440, height: 1000 },
-      args: [
-        "--headless",
-        "--no-sandbox",
-        "--disable-gpu",
-        "--disable-quic",
-        "--no-first-run",
-        "--disable-background-networking",
-        "--disable-component-update",
-        "--disable-sync",
-      ],
-    });
-    cleanup.push(() => context.close());
+    const browser = await launchChromium();
+    cleanup.push(() => browser.close());
+    const context = browser.context;
     const page: Page = context.pages()[0] ?? (await context.newPage());
     await page.goto(consoleUrl as string);
     await expect.poll(() => page.locator(".cautions").textContent()).toMatch(/not a safety system/);
@@ -117,22 +99,7 @@ describe("the demo in a browser", () => {
     const model = await loadSiteModelFile(
       new URL("../infra/sites/kestrel-r1/site.yaml", import.meta.url).pathname,
     );
-    const optimize: OptimizeFn = async (inp) => {
-      const disturbances = Object.fromEntries(
-        model.disturbances
-          .filter((d) => inp.measured[d.symbol] !== undefined)
-          .map((d) => [d.symbol, inp.measured[d.symbol] as number]),
-      );
-      const r = await optimizeOffline({
-        model,
-        parameters: inp.parameters,
-        prices: inp.prices,
-        current: inp.current,
-        disturbances,
-      });
-      return r.status === "proposed" ? r.proposal : undefined;
-    };
-    const again = await recorder.recompute(cycleid, optimize, { tolerance: 1e-5 });
+    const again = await recorder.recompute(cycleid, offlineOptimizer(model), { tolerance: 1e-5 });
     expect(again.recorded.mismatch.updated).toBe(false);
     expect(again.agrees, JSON.stringify(again.setpoints)).toBe(true);
 

@@ -17,8 +17,8 @@ import { loadSiteModelFile, type SiteModel } from "../services/model/index.js";
 import { optimizeOffline } from "../services/optimize/stage.js";
 import { type RecorderConfig, recorderConfigSchema } from "../services/recorder/config.js";
 import { start } from "../services/recorder/index.js";
-import type { OptimizeFn } from "../services/recorder/recompute.js";
 import { mqttUrl, stopOwnBrokers, testSite, waitFor } from "./support/brokers.js";
+import { offlineOptimizer } from "./support/offline-optimizer.js";
 
 const SITES = new URL("./fixtures/sites/", import.meta.url).pathname;
 let url: string;
@@ -39,23 +39,6 @@ afterEach(async () => {
 const PARAMS = { eta1: 2.5e8, eta2: 4.0e13 };
 const PRICES = { pP: 1143.38, pE: 25.92, pA: 76.23, pB: 120 };
 const POINT = { FB: 4.5, T_R: 88, FA: 1.8275 };
-
-/** Wires services/optimize's offline what-if into the recorder's recompute. */
-const optimize: OptimizeFn = async (inp) => {
-  const disturbances = Object.fromEntries(
-    model.disturbances
-      .filter((d) => inp.measured[d.symbol] !== undefined)
-      .map((d) => [d.symbol, inp.measured[d.symbol] as number]),
-  );
-  const r = await optimizeOffline({
-    model,
-    parameters: inp.parameters,
-    prices: inp.prices,
-    current: inp.current,
-    disturbances,
-  });
-  return r.status === "proposed" ? r.proposal : undefined;
-};
 
 describe("recorder", () => {
   it("records one cycle, explains its chain with reasons, and recomputes the proposal from the record", async () => {
@@ -217,7 +200,7 @@ describe("recorder", () => {
     expect(x.text).toContain("pB 120 USD/kg");
 
     // and recompute, fed from the record, reproduces the proposal to solver tolerance
-    const r = await rec.recompute(cycleid, optimize, { tolerance: 1e-6 });
+    const r = await rec.recompute(cycleid, offlineOptimizer(model), { tolerance: 1e-6 });
     expect(r.sources).toEqual({ parameters: "model", prices: "prices", current: "proposal" });
     expect(r.agrees).toBe(true);
     expect(r.maxAbsDiff).toBeLessThan(1e-6);
