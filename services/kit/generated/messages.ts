@@ -756,6 +756,28 @@ export interface Proposal {
      */
     unmeasured?: string[];
     /**
+     * Present when modifier adaptation makes the move (also) for the plant gradient it will give: the modifiers were not estimated near the corrected model's optimum, and either that optimum spreads the operating points enough by itself (a probe: no step, no direction) or the proposal is an excitation step along a direction the past operating points do not cover. validate exempts it from the minimum-improvement check only.
+     */
+    excitation?: {
+      reason: string;
+      /**
+       * Step length as a fraction of the decisions' move limits; absent for a probe.
+       */
+      step?: number;
+      /**
+       * Unit direction of the step, each decision divided by its move limit (1); absent for a probe.
+       *
+       * @maxItems 500
+       */
+      direction?: PerDecision[];
+      /**
+       * The corrected model's optimum that the excitation replaces, decision units.
+       *
+       * @maxItems 500
+       */
+      modelOptimal: PerDecision[];
+    };
+    /**
      * Bias update: measured − model per measured unknown, filtered.
      *
      * @maxItems 500
