@@ -25,6 +25,20 @@ export interface OptimizeOptions {
   gain: number;
   /** Largest condition number of the operating-point set accepted for a plant-gradient estimate. Default 100. */
   maxConditionNumber: number;
+  /**
+   * Smallest spread of the operating points accepted for a plant-gradient estimate: the root of the
+   * smallest eigenvalue of their weighted scatter, each decision divided by its move limit. Default 0.2.
+   */
+  minSpread: number;
+  /**
+   * Excitation step of modifier adaptation, as a fraction of the move limits; 0 turns excitation off
+   * (and lets modifier adaptation stall once the operating points coincide). Default 0.5.
+   */
+  excitation: number;
+  /** Most repeated steady states at one operating point averaged into it. Default 5. */
+  maxSamplesPerPoint: number;
+  /** Distinct operating points the mismatch plane is fitted to (at least n+1 are used). Default 6. */
+  maxPoints: number;
   /** SQP iteration limit. Default 100. */
   maxIterations: number;
   /** SQP optimality tolerance (relative, objective units). Default 1e-8. */
@@ -53,6 +67,10 @@ export const optimizeConfigSchema = serviceConfigSchema(
         mismatch: { enum: ["none", "bias", "modifier"], default: "none" },
         gain: { type: "number", exclusiveMinimum: 0, maximum: 1, default: 0.5 },
         maxConditionNumber: { type: "number", minimum: 1, default: 100 },
+        minSpread: { type: "number", minimum: 0, maximum: 10, default: 0.2 },
+        maxPoints: { type: "integer", minimum: 2, maximum: 100, default: 6 },
+        excitation: { type: "number", minimum: 0, maximum: 1, default: 0.5 },
+        maxSamplesPerPoint: { type: "integer", minimum: 1, maximum: 1000, default: 5 },
         maxIterations: { type: "integer", minimum: 1, maximum: 10000, default: 100 },
         tolerance: { type: "number", exclusiveMinimum: 0, maximum: 0.1, default: 1e-8 },
         snapshotsKept: { type: "integer", minimum: 1, maximum: 1000, default: 20 },

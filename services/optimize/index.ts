@@ -82,7 +82,14 @@ export async function start(config: Readonly<OptimizeConfig>, deps: OptimizeDeps
     lpSolver: o.lpSolver,
     tinyLpMaxVariables: o.tinyLpMaxVariables,
     sqp: { maxIterations: o.maxIterations, tolerance: o.tolerance },
-    mismatch: { gain: o.gain, maxConditionNumber: o.maxConditionNumber },
+    mismatch: {
+      gain: o.gain,
+      maxConditionNumber: o.maxConditionNumber,
+      minSpread: o.minSpread,
+      excitation: o.excitation,
+      maxSamplesPerPoint: o.maxSamplesPerPoint,
+      maxPoints: o.maxPoints,
+    },
   };
   // HiGHS is loaded only for a linear site (its WebAssembly costs start-up time and memory).
   let highs: Highs | undefined;

@@ -1,6 +1,6 @@
 import { beforeAll, describe, expect, test } from "vitest";
 import { loadSiteModelFile, type SiteModel, solveSteadyState } from "../model/index.js";
-import { initialMismatchState, type MismatchState } from "./mismatch.js";
+import { initialMismatchState, type MismatchState, planExcitation } from "./mismatch.js";
 import { runOptimization } from "./stage.js";
 
 const SITES = new URL("../../test/fixtures/sites/", import.meta.url).pathname;
@@ -100,7 +100,9 @@ describe("modifier adaptation", () => {
           measured: m.measured,
           cycleid: `c${k}`,
         },
-        { moveLimits: false, mismatch: { gain: 0.5 } },
+        // Noise-free and excited by the script: the plain finite difference through n+1 points, with
+        // no spread floor (a noise guard) and no excitation of its own.
+        { moveLimits: false, mismatch: { gain: 0.5, excitation: 0, minSpread: 0, maxPoints: 3 } },
       );
       if (r.status !== "proposed") throw new Error(JSON.stringify(r.reasons));
       state = r.mismatch;
@@ -151,5 +153,130 @@ describe("modifier adaptation", () => {
     expect(r.proposal.mismatch.note).toContain("coincide");
     expect(Array.from(r.mismatch.modifiers.objectiveLambda)).toEqual([-20, 5]);
     expect(r.proposal.mismatch.modifiers?.iteration).toBe(4);
+  });
+});
+
+/** One cycle of the loop at u with the plant measured there. */
+function cycle(state: MismatchState, u: readonly number[], cycleid: string, options = {}) {
+  const r = runOptimization(
+    {
+      model,
+      context: { current: { FB: u[0]!, T_R: u[1]! } },
+      mismatch: state,
+      measured: measure(u).measured,
+      cycleid,
+    },
+    options,
+  );
+  if (r.status !== "proposed") throw new Error(JSON.stringify(r.reasons));
+  return r;
+}
+
+describe("modifier adaptation's point set and excitation", () => {
+  test("averages repeated steady states at one operating point into one point", () => {
+    // given a point measured once, then again with the product analyser reading 0.001 higher
+    const u = [4.5, 85];
+    const first = cycle(initialMismatchState(model, "modifier"), u, "c1");
+    const m = measure(u);
+    // when
+    const r = runOptimization(
+      {
+        model,
+        context: { current: { FB: 4.5, T_R: 85 } },
+        mismatch: first.mismatch,
+        measured: { ...m.measured, XP: m.measured.XP! + 0.001 },
+        cycleid: "c2",
+      },
+      {},
+    );
+    // then one point of two samples, its plant profit the mean of the two readings
+    if (r.status !== "proposed") throw new Error("no proposal");
+    expect(r.mismatch.points).toHaveLength(1);
+    expect(r.mismatch.points[0]?.samples).toBe(2);
+    const high = 1143.38 * (1.8275 + 4.5) * 0.001; // profit per 0.001 of XP at F = FA + FB
+    expect(r.proposal.mismatch.plantObjective).toBeCloseTo(m.profit + high / 2, 9);
+  });
+
+  test("estimates λ from the plant–model mismatch at the plant optimum", () => {
+    // given five points around the plant optimum (a quarter of the move limits apart, and back), gain 1
+    let state = initialMismatchState(model, "modifier");
+    const steps = [
+      [0, 0],
+      [0.15, 0],
+      [0, 1.5],
+      [-0.15, 0],
+      [0, -1.5],
+      [0, 0],
+    ];
+    // when
+    steps.forEach(([a, b], k) => {
+      state = cycle(state, [4.787 + a!, 89.7 + b!], `c${k}`, { mismatch: { gain: 1 } }).mismatch;
+    });
+    // then
+    // Source: CHECK-VALUES.md §1 — converged modifiers λ = (−25.53, 7.706) at the plant optimum
+    // (4.787 kg/s, 89.70 °C) with exact gradients (reproduced (SciPy))
+    expect(state.modifiers.objectiveLambda[0]).toBeCloseTo(-25.53, 0);
+    expect(state.modifiers.objectiveLambda[1]).toBeCloseTo(7.706, 1);
+  });
+
+  test("replaces the model's optimum by an excitation step when the points give no direction", () => {
+    // given the plant held twice at the nominal model's optimum (4.769, 78.22): one point, no modifiers
+    let state = initialMismatchState(model, "modifier");
+    state = cycle(state, [4.769, 78.22], "c1").mismatch;
+    // when
+    const r = cycle(state, [4.769, 78.22], "c2");
+    // then the proposal is a step of half a move limit along FB (the model's own move is nil),
+    // with the model's optimum reported beside it
+    const e = r.proposal.mismatch.excitation;
+    expect(e?.step).toBe(0.5);
+    expect(e?.direction?.map((d) => d.value)).toEqual([1, 0]);
+    expect(e?.modelOptimal[0]?.value).toBeCloseTo(4.769, 2);
+    const fb = r.proposal.setpoints[0]!;
+    // half the FB move limit of 0.5 kg/s
+    expect(Math.abs(fb.proposed - fb.current)).toBeCloseTo(0.25, 6);
+    expect(r.mismatch.excitedTo?.[0]).toBeCloseTo(fb.proposed, 12);
+  });
+
+  test("needs no excitation where the modifiers rest on the full point set around the proposal", () => {
+    // given modifiers estimated from six points around (4.5, 85)
+    const from = [
+      [4.5, 85],
+      [4.7, 85],
+      [4.5, 87],
+      [4.3, 85],
+      [4.5, 83],
+      [4.6, 86],
+    ];
+    const base = initialMismatchState(model, "modifier");
+    const state: MismatchState = {
+      ...base,
+      modifiers: { ...base.modifiers, inputs: Float64Array.from([4.5, 85]), iteration: 6 },
+      estimatedFrom: from,
+      points: from.map((inputs, k) => ({ cycleid: `c${k}`, inputs, objective: 180, constraints: [] })),
+    };
+    // when the corrected model's optimum lies inside them / then no excitation, no probe
+    expect(planExcitation(model, state, [4.55, 85.5])).toMatchObject({ excite: false });
+    expect(planExcitation(model, state, [4.55, 85.5])).not.toHaveProperty("probe");
+    // and far outside them the move is a probe for the gradient it will give
+    expect(planExcitation(model, state, [5.2, 89.5])).toMatchObject({ excite: false, probe: true });
+    // and the way back from an excitation step is part of that step
+    const back = { ...state, excitedTo: [4.5, 85] };
+    expect(planExcitation(model, back, [4.55, 85.5])).toMatchObject({ excite: false, probe: true });
+  });
+
+  test("with its own excitation, reaches the plant optimum from the nominal model's without scripted moves", () => {
+    // given the loop at the nominal model's optimum, move limits on, default options
+    let state = initialMismatchState(model, "modifier");
+    let u = [4.769, 78.22];
+    // when it follows its own proposals for 20 noise-free cycles
+    for (let k = 0; k < 20; k++) {
+      const r = cycle(state, u, `c${k}`);
+      state = r.mismatch;
+      u = r.proposal.setpoints.map((s) => s.proposed);
+    }
+    // then
+    // Source: CHECK-VALUES.md §1 — plant optimum 190.98 $/s (Marchetti, Chachuat & Bonvin 2009, from
+    // memory; reproduced 190.9803); the nominal model's optimum earns 150.46 $/s (reproduced (SciPy))
+    expect(measure(u).profit).toBeGreaterThan(190.98 * 0.997);
   });
 });

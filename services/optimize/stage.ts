@@ -16,6 +16,7 @@ import { type MathNode, parseExpression } from "../model/index.js";
 import type { OptimizeErrorCode } from "./errors.js";
 import { createHighsLp, type HighsLp, type LpProblem, type LpResult, solveLpHighs, solveLpJs } from "./lp.js";
 import {
+  type Excitation,
   initialMismatchState,
   type Measured,
   type MismatchMethod,
@@ -24,6 +25,7 @@ import {
   type MismatchState,
   modifiedValue,
   modifiersForNlp,
+  planExcitation,
   updateMismatch,
 } from "./mismatch.js";
 import { modifyProblem } from "./modifier.js";
@@ -37,7 +39,7 @@ import {
   type LinearModifiers,
   type OperatingContext,
 } from "./problem.js";
-import { type SqpOptions, solveNlp } from "./sqp.js";
+import { type ConstraintBlock, type NlpProblem, type SqpOptions, type SqpResult, solveNlp } from "./sqp.js";
 
 /** Options of one optimization (the service config's `optimize` section maps onto these). */
 export interface StageOptions {
@@ -231,12 +233,14 @@ interface Outcome {
 function solveAsNlp(
   input: StageInput,
   ctx: OperatingContext,
-  mismatch: MismatchState,
-  report: MismatchReport,
+  initialMismatch: MismatchState,
+  initialReport: MismatchReport,
   options: StageOptions,
   timer: () => number,
 ): StageResult {
   const { model } = input;
+  let report = initialReport;
+  let mismatch = initialMismatch;
   const built = buildSiteProblem(model, ctx, {
     formulation: options.formulation ?? "sequential",
     moveLimits: options.moveLimits ?? true,
@@ -271,9 +275,21 @@ function solveAsNlp(
     });
   }
   const t0 = timer();
-  const r = solveNlp(nlp, options.sqp);
-  const solveTimeMs = Math.max(0, timer() - t0);
+  let r = solveNlp(nlp, options.sqp);
   const nd = model.decisions.length;
+  if (r.status === "optimal" && mismatch.method === "modifier") {
+    const excited = excite(model, nlp, built.decisionIndices, mismatch, r, options);
+    const { excitedTo: _previous, ...rest } = mismatch;
+    mismatch = rest;
+    if (excited.result) {
+      r = excited.result;
+      nlp = excited.nlp;
+      mismatch = { ...mismatch, excitedTo: built.decisionIndices.map((i) => r.x[i]!) };
+    }
+    if (excited.excitation) report = { ...report, excitation: excited.excitation };
+    else if (excited.note) report = { ...report, note: `${report.note}; ${excited.note}` };
+  }
+  const solveTimeMs = Math.max(0, timer() - t0);
   // Names of the SQP's own bound entries ("x ≥ lb") mapped to this project's bound names.
   const sqpBoundName = (j: number, side: "lower" | "upper") =>
     `${built.variableNames[j]} ${side === "lower" ? "≥" : "≤"} ${side === "lower" ? nlp.lower![j] : nlp.upper![j]}`;
@@ -365,6 +381,82 @@ function solveAsNlp(
     },
     formulation: built.formulation,
   });
+}
+
+/**
+ * Replaces the corrected model's optimum by an excitation move when planExcitation asks for one: the
+ * same problem with the step along ±v held to [1, 1.1]·step (vᵀ·(u − u_k) / scale), solved for
+ * both signs; the sign with the better corrected objective is kept (the cheaper of the
+ * two informative moves). When neither sign is feasible the optimum stands and the note says so.
+ * A probe (the optimum itself, made for the gradient it will give) is only reported.
+ */
+function excite(
+  model: SiteModel,
+  nlp: NlpProblem,
+  decisionIndices: readonly number[],
+  mismatch: MismatchState,
+  optimum: SqpResult,
+  options: StageOptions,
+): { result?: SqpResult; nlp: NlpProblem; excitation?: Excitation; note?: string } {
+  const u = decisionIndices.map((i) => optimum.x[i]!);
+  const plan = planExcitation(model, mismatch, u, options.mismatch);
+  if (!plan.excite)
+    return plan.probe ? { nlp, excitation: { reason: plan.reason, modelOptimal: u } } : { nlp };
+  const n = nlp.x0.length;
+  const along = (x: Float64Array) => {
+    let s = 0;
+    decisionIndices.forEach((i, j) => {
+      s += (plan.direction[j]! * (x[i]! - plan.anchor[j]!)) / plan.scale[j]!;
+    });
+    return s;
+  };
+  let best: { result: SqpResult; nlp: NlpProblem; value: number } | undefined;
+  for (const sign of [1, -1]) {
+    const jac = new Float64Array(n);
+    decisionIndices.forEach((i, j) => {
+      jac[i] = (sign * plan.direction[j]!) / plan.scale[j]!;
+    });
+    // A narrow band rather than an equality (the SQP's reported KKT residual is wrong for equality
+    // rows, and validate checks it): between one and 1.1 steps, so that the optimizer cannot turn the
+    // probe into a full move-limit step where the corrected model likes that direction.
+    const minus = Float64Array.from(jac, (v) => -v);
+    const row: ConstraintBlock = {
+      names: ["excitation step ≥", "excitation step ≤"],
+      values: (x) => [sign * along(x) - plan.step, 1.1 * plan.step - sign * along(x)],
+      jacobian: () => [jac, minus],
+    };
+    const ineq = nlp.inequalities;
+    const withStep: NlpProblem = {
+      ...nlp,
+      inequalities: ineq
+        ? {
+            names: [...ineq.names, ...row.names],
+            values: (x) => [...Array.from(ineq.values(x)), ...Array.from(row.values(x))],
+            jacobian: (x) => [...ineq.jacobian(x), ...row.jacobian(x)],
+          }
+        : row,
+    };
+    const result = solveNlp(withStep, options.sqp);
+    if (result.status !== "optimal") continue;
+    const value = withStep.objective(result.x);
+    const better = !best || (nlp.sense === "max" ? value > best.value : value < best.value);
+    if (better) best = { result, nlp: withStep, value };
+  }
+  if (!best)
+    return {
+      nlp,
+      note: `excitation needed but neither direction is feasible within the bounds and move limits (${plan.reason})`,
+    };
+  return {
+    result: best.result,
+    nlp: best.nlp,
+    excitation: {
+      reason: plan.reason,
+      step: plan.step,
+      direction: Array.from(plan.direction),
+      modelOptimal: u,
+    },
+  };
 }
 
 function solveAsLp(
@@ -718,6 +810,12 @@ function finishProposal(
   if (report.conditionNumber !== undefined && Number.isFinite(report.conditionNumber))
     mm.conditionNumber = report.conditionNumber;
   if (report.unmeasured) mm.unmeasured = report.unmeasured;
+  if (report.excitation) {
+    const e = report.excitation;
+    mm.excitation = { reason: e.reason.slice(0, 1000), modelOptimal: point(e.modelOptimal) };
+    if (e.step !== undefined) mm.excitation.step = e.step;
+    if (e.direction) mm.excitation.direction = point(e.direction);
+  }
   if (mismatch.method === "bias") {
     mm.bias = Object.entries(mismatch.bias).map(([symbol, value]) => ({
       symbol,
