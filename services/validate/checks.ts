@@ -56,6 +56,10 @@ export interface CheckOptions {
 export interface MoveRecord {
   cycleId: string;
   moves: Readonly<Record<string, number>>;
+  /** Modifier updates behind the proposal that made the move (rto.proposal.v1 mismatch.modifiers.iteration), if any. */
+  modifierIteration?: number;
+  /** True when the move was an excitation step of modifier adaptation (a probe meant to be taken back). */
+  excitation?: boolean;
 }
 
 /** The cycle's model update as far as the model-fit gate needs it. */
@@ -173,10 +177,20 @@ export function runChecks(
     add("kkt-residual", "pass", kktParts.map(([n, v, l]) => `${n} ${fmt(v)} ≤ ${fmt(l)}`).join("; "));
   }
 
-  // Minimum predicted improvement, in the objective's own sense.
+  // Minimum predicted improvement, in the objective's own sense. A move modifier adaptation makes for
+  // the plant gradient it will give is exempt: its worth is the information, and refusing it stalls
+  // modifier adaptation as plain two-step. It is exempt from this check only.
   const gain = p.objective.sense === "max" ? p.objective.change : -p.objective.change;
   const minGain = options.policy.minImprovement;
-  if (!(gain >= minGain)) {
+  const probe = p.mismatch.method === "modifier" ? p.mismatch.excitation : undefined;
+  if (probe) {
+    add(
+      "min-improvement",
+      "pass",
+      `${probe.step !== undefined ? "excitation step" : "probing move"} of modifier adaptation, exempt from the minimum ${fmt(minGain)} ${p.objective.unit}: predicted change ${fmt(gain)} ${p.objective.unit}; ${probe.reason}`,
+      { value: gain, limit: minGain, unit: p.objective.unit },
+    );
+  } else if (!(gain >= minGain)) {
     add(
       "min-improvement",
       "fail",
@@ -371,17 +385,25 @@ export function runChecks(
       });
     }
 
-    // Flip-flop: a reversal of a recent dispatched move, both beyond the threshold.
+    // Flip-flop: a reversal of a recent dispatched move, both beyond the threshold. Not a flip-flop
+    // under modifier adaptation when the modifiers were updated from new plant-gradient information
+    // since that move (the reversal answers what the plant said), or when that move was an
+    // excitation step (a probe is meant to be taken back).
     const threshold = options.consistency.minReversalFraction * (d.max - d.min);
+    const iteration = p.mismatch.modifiers?.iteration;
     const reversal = inDeadband
       ? undefined
       : recent.find((r) => {
           const prev = r.moves[d.symbol];
+          const learned =
+            iteration !== undefined && r.modifierIteration !== undefined && iteration > r.modifierIteration;
           return (
             prev !== undefined &&
             Math.abs(prev) >= threshold &&
             size >= threshold &&
-            Math.sign(prev) === -Math.sign(move)
+            Math.sign(prev) === -Math.sign(move) &&
+            !learned &&
+            r.excitation !== true
           );
         });
     if (reversal) {

@@ -323,4 +323,88 @@ describe("runChecks", () => {
       ["bounds", "VALIDATE_DECISION_UNKNOWN", "P"],
     ]);
   });
+
+  describe("under modifier adaptation", () => {
+    const modifiers = (iteration: number): Proposal["mismatch"]["modifiers"] => ({
+      point: [],
+      objectiveEpsilon: 0,
+      objectiveLambda: [],
+      constraints: [],
+      iteration,
+    });
+    const excitation: NonNullable<Proposal["mismatch"]["excitation"]> = {
+      reason: "the operating points coincide",
+      step: 0.5,
+      direction: [
+        { decision: "F", value: 0 },
+        { decision: "T", value: 1 },
+      ],
+      modelOptimal: [
+        { decision: "F", value: 2 },
+        { decision: "T", value: 75 },
+      ],
+    };
+
+    it("exempts an excitation step from the minimum improvement, and from nothing else", () => {
+      // given an excitation step that costs 0.4 USD/h by the corrected model
+      const step = proposal({
+        objective: { sense: "max", unit: "USD/h", current: 100, proposed: 99.6, change: -0.4 },
+        mismatch: { method: "modifier", updated: false, note: "", modifiers: modifiers(2), excitation },
+      });
+      // when checked
+      const r = runChecks(input({ proposal: step }), decisions, options);
+      // then it passes, and the check says why
+      expect(r.verdict).toBe("pass");
+      const minImprovement = r.checks.find((c) => c.name === "min-improvement");
+      expect(minImprovement?.outcome).toBe("pass");
+      expect(minImprovement?.reason).toContain("excitation step");
+      // and a step beyond the move limit, or a stale snapshot, still fails
+      const far = proposal({
+        ...step,
+        setpoints: step.setpoints.map((s) =>
+          s.decision === "T" ? { ...s, proposed: 79.5 } : s,
+        ) as Proposal["setpoints"],
+      });
+      const stale = runChecks(input({ proposal: far, snapshotEndMs: NOW - 3_600_000 }), decisions, options);
+      expect(failed(stale)).toEqual([
+        ["data-age", "VALIDATE_DATA_STALE", undefined],
+        ["move-limit", "VALIDATE_MOVE_LIMIT", "T"],
+      ]);
+    });
+
+    it("does not exempt a proposal of another mismatch method that carries an excitation", () => {
+      const odd = proposal({
+        objective: { sense: "max", unit: "USD/h", current: 100, proposed: 100.1, change: 0.1 },
+        mismatch: { method: "bias", updated: true, note: "", excitation },
+      });
+      expect(failed(runChecks(input({ proposal: odd }), decisions, options))).toEqual([
+        ["min-improvement", "VALIDATE_IMPROVEMENT_SMALL", undefined],
+      ]);
+    });
+
+    it("lets a reversal pass when the modifiers learnt from the plant since the reversed move", () => {
+      // given T moved −2 degC under modifier update 3
+      const history: MoveRecord[] = [{ cycleId: "c1", moves: { T: -2 }, modifierIteration: 3 }];
+      const at = (iteration: number) =>
+        proposal({
+          mismatch: { method: "modifier", updated: true, note: "", modifiers: modifiers(iteration) },
+        });
+      // when a +2 degC proposal rests on update 4 it answers new plant information: no flip-flop
+      expect(failed(runChecks(input({ proposal: at(4), history }), decisions, options))).toEqual([]);
+      // but on the same update 3 it is the flip-flop the guard is for
+      expect(failed(runChecks(input({ proposal: at(3), history }), decisions, options))).toEqual([
+        ["consistency", "VALIDATE_FLIP_FLOP", "T"],
+      ]);
+    });
+
+    it("lets the way back from an excitation step pass the flip-flop guard", () => {
+      const history: MoveRecord[] = [
+        { cycleId: "c1", moves: { T: -2 }, modifierIteration: 3, excitation: true },
+      ];
+      const back = proposal({
+        mismatch: { method: "modifier", updated: false, note: "", modifiers: modifiers(3) },
+      });
+      expect(failed(runChecks(input({ proposal: back, history }), decisions, options))).toEqual([]);
+    });
+  });
 });

@@ -14,7 +14,7 @@
 import { existsSync, readFileSync, renameSync, writeFileSync } from "node:fs";
 import { type SigningKey, signCommand } from "../kit/command-signing.js";
 import type { Event } from "../kit/envelope.js";
-import type { CycleStatus, OperatorMode, ValidationResult } from "../kit/generated/messages.js";
+import type { CycleStatus, OperatorMode, Readback, ValidationResult } from "../kit/generated/messages.js";
 import { type Deps, type Service, startRuntime } from "../kit/service.js";
 import { subject } from "../kit/subjects.js";
 import { loadSiteModelFile, type SiteModel, type ValidationPolicy } from "../model/index.js";
@@ -84,6 +84,29 @@ function writeSeqFile(path: string | undefined, lastSeq: number): void {
   renameSync(`${path}.tmp`, path);
 }
 
+/**
+ * The setpoints in force at `nowMs` by tag: each readback setpoint's `current` moved toward its
+ * `target` at its ramp rate for the time since the readback. The answer to a command is sent when
+ * the ramp starts, and status readbacks may be far apart; without the projection the next cycle's
+ * move would be measured from where the last ramp began, and a proposal one move limit beyond the
+ * new target would read as two.
+ */
+export function inForceAt(rb: Readback | undefined, nowMs: number): Map<string, number> {
+  if (!rb) return new Map();
+  const elapsedS = Math.max(0, (nowMs - rb.time) / 1000);
+  const projected: Readback = {
+    ...rb,
+    setpoints: rb.setpoints.map((s) => {
+      if (s.rampPerS === undefined || s.current === s.target) return s;
+      const reach = s.rampPerS * elapsedS;
+      const current =
+        s.target > s.current ? Math.min(s.target, s.current + reach) : Math.max(s.target, s.current - reach);
+      return { ...s, current };
+    }),
+  };
+  return inForceFromReadback(projected);
+}
+
 /** Starts validate. Throws on a bad site model, an override naming an unknown tag, or no broker. */
 export async function start(config: Readonly<ValidateConfig>, deps: ValidateDeps): Promise<ValidateService> {
   const o = config.validate;
@@ -130,7 +153,9 @@ export async function start(config: Readonly<ValidateConfig>, deps: ValidateDeps
   const snapshots = new BoundedMap<number>(o.rememberCycles);
   const models = new BoundedMap<ModelGateInput>(o.rememberCycles);
   const history: MoveRecord[] = [];
-  let inForce = new Map<string, number>();
+  // The last readback that listed setpoints; the setpoints in force are projected from it along
+  // each ramp to the time of a check (see inForceAt).
+  let heldBack: Readback | undefined;
   let lastReadBackSeq: number | undefined;
   let lastSent = readSeqFile(o.dispatch.stateFile);
   let hold: string | undefined;
@@ -216,7 +241,7 @@ export async function start(config: Readonly<ValidateConfig>, deps: ValidateDeps
         nowMs: clock.now(),
         snapshotEndMs: snapshots.get(cycleId),
         model: models.get(cycleId),
-        inForce,
+        inForce: inForceAt(heldBack, clock.now()),
         history,
         overrides,
         ...(hold !== undefined ? { dispatchHold: hold } : {}),
@@ -291,7 +316,11 @@ export async function start(config: Readonly<ValidateConfig>, deps: ValidateDeps
     cancelPlanned();
     const moves: Record<string, number> = {};
     for (const s of result.setpoints) if (s.action === "move") moves[s.decision] = s.target - s.from;
-    history.push({ cycleId, moves });
+    const record: MoveRecord = { cycleId, moves };
+    const mm = proposal.data.mismatch;
+    if (mm.modifiers) record.modifierIteration = mm.modifiers.iteration;
+    if (mm.method === "modifier" && mm.excitation?.step !== undefined) record.excitation = true;
+    history.push(record);
     while (history.length > o.historyCycles) history.shift();
     const [first, ...later] = steps;
     if (!first) return;
@@ -340,7 +369,7 @@ export async function start(config: Readonly<ValidateConfig>, deps: ValidateDeps
       const rb = e.data;
       if (rb.target.site !== config.site) return;
       lastReadBackSeq = Math.max(lastReadBackSeq ?? 0, rb.lastSeq);
-      if (rb.setpoints.length > 0) inForce = inForceFromReadback(rb);
+      if (rb.setpoints.length > 0) heldBack = rb;
       const verdict = watch.onReadback(rb);
       if (!verdict) return;
       if (verdict.kind === "refused") {
