@@ -30,7 +30,20 @@ export default defineConfig({
         test: {
           name: "e2e",
           include: ["services/**/*.e2e.test.ts", "test/**/*.e2e.test.ts"],
+          exclude: ["test/closed-loop.e2e.test.ts"],
           testTimeout: 600_000,
+          hookTimeout: 120_000,
+          fileParallelism: false,
+        },
+      },
+      {
+        // The closed-loop comparison of modifier adaptation with two-step RTO: about 7 minutes of
+        // wall time, and its margin (0.35–0.41 % against the 0.5 % it asserts) is too thin for a CI
+        // machine under load; run it with `npm run test:loop`.
+        test: {
+          name: "loop",
+          include: ["test/closed-loop.e2e.test.ts"],
+          testTimeout: 900_000,
           hookTimeout: 120_000,
           fileParallelism: false,
         },

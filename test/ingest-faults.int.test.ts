@@ -269,7 +269,9 @@ describe("plant-sim faults through ingest, steady and reconcile on Mosquitto", (
         v.notSteady.some((t) => t.tag === "FI-102" && t.state === "transient"),
       ),
     ).toBe(true);
-    expect(cyclesIn(w.fromMs, w.fromMs + FAULT_S * 1000)).toEqual([]);
+    // A ramp is only visible after a few samples (the first drifted values are 1–2 σ from the level):
+    // a snapshot whose window closes within three samples of the onset may still be confirmed.
+    expect(cyclesIn(w.fromMs + 3 * PERIOD_S * 1000, w.fromMs + FAULT_S * 1000)).toEqual([]);
     lastMs = w.toMs;
   }, 30_000);
 

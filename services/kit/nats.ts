@@ -170,6 +170,9 @@ class NatsBus implements Bus {
     options: SubscribeOptions,
   ): Promise<Subscription> {
     const sub = this.nc.subscribe(filter, options.group ? { queue: options.group } : {});
+    // Core NATS delivers only to interest the server already knows: resolve once it does, so a
+    // publish right after subscribe() is not lost.
+    await this.nc.flush();
     const done = (async () => {
       for await (const m of sub) {
         try {
