@@ -2,7 +2,7 @@
  * Problems from the Hock & Schittkowski collection, written with exact derivatives.
  *
  * Source: Hock, W. & Schittkowski, K. (1981), "Test Examples for Nonlinear Programming Codes",
- * Lecture Notes in Economics and Mathematical Systems 187, Springer. Problem statements, start points
+ * Springer, LNEMS vol. 187 (the economics and mathematical systems series). Problem statements, start points
  * and optima are from memory; each optimum below was re-computed with SciPy 1.17 SLSQP from the same
  * start with exact derivatives (ftol 1e-12 and 1e-14), see `reproduction` on each problem.
  *
