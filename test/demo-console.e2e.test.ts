@@ -101,7 +101,20 @@ describe("the demo in a browser", () => {
     );
     const again = await recorder.recompute(cycleid, offlineOptimizer(model), { tolerance: 1e-5 });
     expect(again.recorded.mismatch.updated).toBe(false);
-    expect(again.agrees, JSON.stringify(again.setpoints)).toBe(true);
+    const excitation = again.recorded.mismatch.excitation;
+    if (excitation) {
+      // Modifier adaptation made the first move also for the plant gradient it gives (an excitation
+      // step): the optimum it replaced is recorded, and that is what the offline re-run reproduces.
+      for (const sp of again.setpoints) {
+        const optimal = excitation.modelOptimal.find((d) => d.decision === sp.decision)?.value;
+        expect(optimal, sp.decision).toBeDefined();
+        expect(Math.abs(sp.recomputed - (optimal ?? Number.NaN)), sp.decision).toBeLessThan(
+          1e-5 * Math.max(1, Math.abs(optimal ?? 0)),
+        );
+      }
+    } else {
+      expect(again.agrees, JSON.stringify(again.setpoints)).toBe(true);
+    }
 
     mkdirSync(ARTIFACTS, { recursive: true });
     await page.waitForTimeout(1500);
