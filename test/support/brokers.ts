@@ -93,44 +93,7 @@ function stopProcess(p: ChildProcess): Promise<void> {
  * default of 1000 silently drops even QoS 1 messages for a lagging subscriber (LIBRARY-NOTES).
  */
 export async function startMosquitto(): Promise<OwnBroker> {
-  if (!hasBinary("mosquitto"))
-    throw new KitError("KIT_BROKER_UNAVAILABLE", "no mosquitto binary on this machine");
-  const dir = mkdtempSync(join(tmpdir(), "sf-mosq-"));
-  // Mosquitto started as root drops to the 'mosquitto' user, which must be able to write its store.
-  chmodSync(dir, 0o777);
-  const port = await freePort();
-  const conf = join(dir, "mosquitto.conf");
-  writeFileSync(
-    conf,
-    [
-      `listener ${port} 127.0.0.1`,
-      "allow_anonymous true",
-      "persistence true",
-      `persistence_location ${dir}/`,
-      "max_queued_messages 0",
-      "max_inflight_messages 100",
-      "log_dest none",
-      "",
-    ].join("\n"),
-  );
-  let proc: ChildProcess;
-  const launch = async () => {
-    proc = spawn(binaryPath("mosquitto"), ["-c", conf], { stdio: "ignore" });
-    await waitReachable(port);
-  };
-  await launch();
-  return {
-    url: `mqtt://127.0.0.1:${port}`,
-    port,
-    restart: async () => {
-      await stopProcess(proc);
-      await launch();
-    },
-    stop: async () => {
-      await stopProcess(proc);
-      rmSync(dir, { recursive: true, force: true });
-    },
-  };
+  return startMosquittoWithConfig(["allow_anonymous true"]);
 }
 
 /** nats-server with JetStream on a free port and its own store directory. */
