@@ -45,10 +45,10 @@ import {
   type PlantSimConfig,
   type PlantSimOptions,
   plantSimConfigSchema,
+  simulatorOptions,
 } from "../services/plant-sim/config.js";
 import { writeSimulatedCsv } from "../services/plant-sim/csv-out.js";
 import { type PlantSimService, start as startPlantSim } from "../services/plant-sim/index.js";
-import type { SimulatorOptions } from "../services/plant-sim/sim.js";
 import { type SteadyConfig, steadyConfigSchema } from "../services/steady/config.js";
 import type { Snapshot } from "../services/steady/detector.js";
 import { detectorBatches, siteDetector, start as startSteady } from "../services/steady/index.js";
@@ -69,24 +69,6 @@ function weekSiteModel(): SiteModel {
   for (const t of doc.tags) t.staleAfterS = 86_400;
   doc.steadyState = { ...doc.steadyState, lambda1: 0.2, lambda2: 0.1, lambda3: 0.1, rCritical: 1.44 };
   return loadSiteModel(stringify(doc), "kestrel-r1-week-test.yaml");
-}
-
-/** The simulator options plant-sim builds from its config (services/plant-sim/index.ts). */
-function simulatorOptions(o: PlantSimOptions): SimulatorOptions {
-  return {
-    states: o.states,
-    periodS: o.periodS,
-    holdS: o.holdS,
-    rtol: o.rtol,
-    seed: o.seed,
-    noiseScale: o.noiseScale,
-    faults: o.faults,
-    ...(o.loops ? { loops: o.loops } : {}),
-    ...(o.drifts ? { drifts: o.drifts } : {}),
-    ...(o.disturbances ? { disturbances: o.disturbances } : {}),
-    ...(o.trips ? { trips: o.trips } : {}),
-    ...(o.initialDecisions ? { initialDecisions: o.initialDecisions } : {}),
-  };
 }
 
 /** A snapshot reduced to what both runs must share, times relative to the run's simulated time 0. */

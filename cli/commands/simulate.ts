@@ -10,7 +10,11 @@ import { once } from "node:events";
 import { createWriteStream } from "node:fs";
 import { loadConfig, readConfigFile } from "../../services/kit/config.js";
 import { loadSiteModelFile } from "../../services/model/index.js";
-import { type PlantSimConfig, plantSimConfigSchema } from "../../services/plant-sim/config.js";
+import {
+  type PlantSimConfig,
+  plantSimConfigSchema,
+  simulatorOptions,
+} from "../../services/plant-sim/config.js";
 import { createSimulator } from "../../services/plant-sim/sim.js";
 import { numberFlag, parseCommandArgs, str } from "../args.js";
 import { CliError } from "../errors.js";
@@ -73,20 +77,7 @@ export async function simulateCommand(argv: string[], ctx: CommandContext): Prom
   const o = config.plantSim;
   const seed = numberFlag(str(p, "seed"), "seed", { integer: true, min: 0 }) ?? o.seed;
   const model = await loadSiteModelFile(resolvePath(o.plantModel));
-  const sim = createSimulator(model, {
-    states: o.states,
-    periodS: o.periodS,
-    holdS: o.holdS,
-    rtol: o.rtol,
-    seed,
-    noiseScale: o.noiseScale,
-    faults: o.faults,
-    ...(o.loops ? { loops: o.loops } : {}),
-    ...(o.drifts ? { drifts: o.drifts } : {}),
-    ...(o.disturbances ? { disturbances: o.disturbances } : {}),
-    ...(o.trips ? { trips: o.trips } : {}),
-    ...(o.initialDecisions ? { initialDecisions: o.initialDecisions } : {}),
-  });
+  const sim = createSimulator(model, { ...simulatorOptions(o), seed });
   const tags = model.tags.map((t) => t.id);
   const stream = createWriteStream(out, { encoding: "utf8" });
   const write = async (line: string) => {

@@ -9,6 +9,7 @@ import type { StateForm } from "./dynamics.js";
 import type { FaultSpec } from "./faults.js";
 import type { DisturbanceSpec, DriftSpec, TripSpec } from "./plant.js";
 import type { LoopSpec } from "./regulatory.js";
+import type { SimulatorOptions } from "./sim.js";
 
 const num = (description: string, extra: Record<string, unknown> = {}) => ({
   type: "number",
@@ -317,4 +318,22 @@ export interface PlantSimOptions {
 /** The whole plant-sim config. */
 export interface PlantSimConfig extends BaseConfig {
   plantSim: PlantSimOptions;
+}
+
+/** The simulator options of a plant-sim config: one mapping for the service, the CLI and the tests. */
+export function simulatorOptions(o: PlantSimOptions): SimulatorOptions {
+  return {
+    states: o.states,
+    periodS: o.periodS,
+    holdS: o.holdS,
+    rtol: o.rtol,
+    seed: o.seed,
+    noiseScale: o.noiseScale,
+    faults: o.faults,
+    ...(o.loops ? { loops: o.loops } : {}),
+    ...(o.drifts ? { drifts: o.drifts } : {}),
+    ...(o.disturbances ? { disturbances: o.disturbances } : {}),
+    ...(o.trips ? { trips: o.trips } : {}),
+    ...(o.initialDecisions ? { initialDecisions: o.initialDecisions } : {}),
+  };
 }

@@ -16,7 +16,7 @@ import type { Readback, ReadbackSetpoint, SetpointCommand } from "../kit/generat
 import { type Deps, type Service, startRuntime } from "../kit/service.js";
 import { subject } from "../kit/subjects.js";
 import { loadSiteModelFile } from "../model/index.js";
-import type { PlantSimConfig } from "./config.js";
+import { type PlantSimConfig, simulatorOptions } from "./config.js";
 import type { FaultSpec } from "./faults.js";
 import { createSimulator, type SimBatch, type Simulator } from "./sim.js";
 import { type SparkplugOut, startSparkplugOut } from "./sparkplug-out.js";
@@ -36,20 +36,7 @@ export async function start(config: Readonly<PlantSimConfig>, deps: Deps = {}): 
   const o = config.plantSim;
   // Model and simulator first: a config that does not fit the plant stops start-up before connecting.
   const model = await loadSiteModelFile(o.plantModel);
-  const sim = createSimulator(model, {
-    states: o.states,
-    periodS: o.periodS,
-    holdS: o.holdS,
-    rtol: o.rtol,
-    seed: o.seed,
-    noiseScale: o.noiseScale,
-    faults: o.faults,
-    ...(o.loops ? { loops: o.loops } : {}),
-    ...(o.drifts ? { drifts: o.drifts } : {}),
-    ...(o.disturbances ? { disturbances: o.disturbances } : {}),
-    ...(o.trips ? { trips: o.trips } : {}),
-    ...(o.initialDecisions ? { initialDecisions: o.initialDecisions } : {}),
-  });
+  const sim = createSimulator(model, simulatorOptions(o));
   const plant = sim.plant;
   const limits: Record<string, TagLimit> = {};
   for (const d of model.decisions) {
