@@ -1,7 +1,8 @@
 /**
  * Optimizer benchmark: our SQP against SciPy SLSQP on the Williams–Otto reactor, and our HiGHS LP
- * path (cold and warm) against SciPy `linprog(method="highs")` on random sparse LPs. Both sides run
- * in the same process tree in the same run; Python times itself with time.perf_counter.
+ * path (cold and warm, by name and by index) against SciPy `linprog(method="highs")` on random sparse
+ * LPs, with HiGHS's own cost of a run that has nothing to do. Both sides run in the same process tree
+ * in the same run; Python times itself with time.perf_counter.
  *
  * Run: npx tsx bench/optimize.ts
  */
@@ -225,18 +226,26 @@ async function main() {
     const jsMs = lp.n <= 50 ? timeIt(() => solveLpJs(p)) : Number.NaN;
     const js = lp.n <= 50 ? solveLpJs(p) : undefined;
     const byName = (costs: number[]) => Object.fromEntries(costs.map((c, j) => [`x${j}`, c]));
-    const warm = (costs: number[], stageCycle: boolean) => {
-      const model = createHighsLp(highs, p);
+    /**
+     * Warm re-solves alternating between `costs` and the original ones. "name": setCosts by name, the
+     * results with their by-name records (the default); "index": a model made with `records: false`,
+     * setCostVector and the values read through the typed array; "stage": what the optimize stage does
+     * each cycle (costs by name, every bound and limit re-stated, and the three records read).
+     */
+    const warm = (costs: number[], mode: "name" | "index" | "stage") => {
+      const model = createHighsLp(highs, p, { records: mode !== "index" });
       model.solve();
-      const targets = [byName(costs), byName(lp.cost)];
+      const named = [byName(costs), byName(lp.cost)];
+      const indexed = [Float64Array.from(costs), Float64Array.from(lp.cost)];
       const iterations: number[] = [];
       let flip = 0;
       let obj = Number.NaN;
+      let sink = 0;
       // Alternate between the two cost vectors so that every timed re-solve has pivots to do.
       const ms = timeIt(() => {
-        model.setCosts(targets[flip % 2]!);
-        if (stageCycle) {
-          // What the optimize stage does each cycle: re-state every bound and limit, then solve.
+        if (mode === "index") model.setCostVector(indexed[flip % 2]!);
+        else model.setCosts(named[flip % 2]!);
+        if (mode === "stage") {
           for (const v of p.variables)
             model.setVariableBounds(v.name, v.lb ?? 0, v.ub ?? Number.POSITIVE_INFINITY);
           for (const c of p.constraints)
@@ -247,12 +256,57 @@ async function main() {
             );
         }
         const r = model.solve();
+        if (mode === "index") for (const x of r.columnValues) sink += x;
+        if (mode === "stage") sink += (r.values.x0 ?? 0) + (r.duals.r0 ?? 0) + (r.reducedCosts.x0 ?? 0);
         if (flip % 2 === 0) obj = r.objective;
         iterations.push(r.iterations ?? Number.NaN);
         flip++;
       });
       model.dispose();
+      // The sum keeps the reads from being optimized away; it is finite whenever the solves were optimal.
+      if (!Number.isFinite(sink)) throw new Error(`warm ${mode}: non-finite values read`);
       return { ms, obj, iterations: median(iterations) };
+    };
+    /**
+     * HiGHS's floor: `run()` on a solved model with nothing changed, on a raw HiGHS model (no JavaScript
+     * of ours), and our indexed `solve()` with nothing changed (the floor plus reading the result).
+     */
+    const floor = () => {
+      const rowStarts = new Int32Array(lp.m + 1);
+      lp.rows.forEach((row, i) => {
+        rowStarts[i + 1] = rowStarts[i]! + row.idx.length;
+      });
+      const raw = highs.createModel({
+        numCols: lp.n,
+        numRows: lp.m,
+        sense: highs.constants.objectiveSense.minimize,
+        colCost: Float64Array.from(lp.cost),
+        colLower: new Float64Array(lp.n),
+        colUpper: new Float64Array(lp.n).fill(10),
+        rowLower: new Float64Array(lp.m).fill(-highs.infinity),
+        rowUpper: Float64Array.from(lp.rows, (row) => row.ub),
+        matrix: {
+          format: "csr",
+          numRows: lp.m,
+          numCols: lp.n,
+          starts: rowStarts,
+          indices: Int32Array.from(lp.rows.flatMap((row) => row.idx)),
+          values: Float64Array.from(lp.rows.flatMap((row) => row.val)),
+        },
+      });
+      raw.options.set({ output_flag: false });
+      raw.run();
+      const runMs = timeIt(() => raw.run());
+      raw.dispose();
+      const model = createHighsLp(highs, p, { records: false });
+      model.solve();
+      let sink = 0;
+      const oursMs = timeIt(() => {
+        for (const x of model.solve().columnValues) sink += x;
+      });
+      model.dispose();
+      if (!Number.isFinite(sink)) throw new Error("floor: non-finite values read");
+      return { runMs, oursMs };
     };
     return {
       lp,
@@ -260,9 +314,10 @@ async function main() {
       coldMs,
       jsMs,
       js,
-      big: warm(lp.costWarm, false),
-      drift: warm(lp.costDrift, false),
-      cycle: warm(lp.costDrift, true),
+      big: { name: warm(lp.costWarm, "name"), index: warm(lp.costWarm, "index") },
+      drift: { name: warm(lp.costDrift, "name"), index: warm(lp.costDrift, "index") },
+      cycle: warm(lp.costDrift, "stage"),
+      floor: floor(),
     };
   });
   peerRuns.push(runPeer(lps));
@@ -302,23 +357,47 @@ async function main() {
   console.log(
     "\nwarm: a kept model re-solved after a cost change (HiGHS keeps its basis), against SciPy's cold solve of the\n" +
       "changed problem (SciPy cannot warm-start). 'large' = 5 % of costs by up to ±20 %; 'drift' = every cost by up\n" +
-      "to ±2 %; 'stage cycle' = drift plus every bound and limit re-stated, as the optimize stage does each cycle.",
+      "to ±2 %; 'stage cycle' = drift plus every bound and limit re-stated, as the optimize stage does each cycle.\n" +
+      "by name: setCosts({ name: cost }), solve, results with their by-name records (the default); stage cycle\n" +
+      "also reads them, as the stage does. by index: a model made with records: false, setCostVector(Float64Array),\n" +
+      "solve, all values summed through result.columnValues. pivots: by name / by index.",
   );
   console.log(
-    `${pad("n", 5)}  ${pad("change", 11)}  ${pad("ours warm", 9)}  ${pad("SciPy", 7)}  ${pad("ratio", 6)}  ${pad("pivots", 6)}  ${pad("|Δobj| rel", 10)}`,
+    `${pad("n", 5)}  ${pad("change", 11)}  ${pad("by name", 8)}  ${pad("ratio", 6)}  ${pad("by index", 8)}  ${pad("ratio", 6)}  ` +
+      `${pad("SciPy", 7)}  ${pad("pivots", 6)}  ${pad("|Δobj| rel", 10)}`,
   );
   lpRows.forEach((row, k) => {
     const peer = before.lp[k]!;
     for (const [label, w, peerMs, ref] of [
       ["large", row.big, both((run) => run.lp[k]!.warm), peer.objWarm],
       ["drift", row.drift, both((run) => run.lp[k]!.drift), peer.objDrift],
-      ["stage cycle", row.cycle, both((run) => run.lp[k]!.drift), peer.objDrift],
+      ["stage cycle", { name: row.cycle, index: undefined }, both((run) => run.lp[k]!.drift), peer.objDrift],
     ] as const) {
+      const rel = (obj: number) => Math.abs(obj - ref) / Math.abs(ref);
+      const idx = w.index;
       console.log(
-        `${pad(String(row.lp.n), 5)}  ${pad(label, 11)}  ${pad(w.ms.toFixed(3), 9)}  ${pad(peerMs.toFixed(3), 7)}  ${pad((w.ms / peerMs).toFixed(3), 6)}  ` +
-          `${pad(String(w.iterations), 6)}  ${pad((Math.abs(w.obj - ref) / Math.abs(ref)).toExponential(1), 10)}`,
+        `${pad(String(row.lp.n), 5)}  ${pad(label, 11)}  ${pad(w.name.ms.toFixed(3), 8)}  ${pad((w.name.ms / peerMs).toFixed(3), 6)}  ` +
+          `${pad(idx ? idx.ms.toFixed(3) : "—", 8)}  ${pad(idx ? (idx.ms / peerMs).toFixed(3) : "—", 6)}  ${pad(peerMs.toFixed(3), 7)}  ` +
+          `${pad(`${w.name.iterations}/${idx ? idx.iterations : "—"}`, 6)}  ` +
+          `${pad(Math.max(rel(w.name.obj), idx ? rel(idx.obj) : 0).toExponential(1), 10)}`,
       );
     }
+  });
+  console.log(
+    "\nHiGHS floor per run: run() on a solved raw HiGHS model with nothing changed (no JavaScript of ours),\n" +
+      "and our indexed solve() with nothing changed (floor + reading the result); ratios against SciPy's cold\n" +
+      "solve of the same LP. No warm re-solve through HiGHS can get below the floor.",
+  );
+  console.log(
+    `${pad("n", 5)}  ${pad("HiGHS floor", 11)}  ${pad("ratio", 6)}  ${pad("ours unchanged", 14)}  ${pad("ratio", 6)}  ${pad("SciPy", 7)}`,
+  );
+  lpRows.forEach((row, k) => {
+    const peerCold = both((run) => run.lp[k]!.cold);
+    const { runMs, oursMs } = row.floor;
+    console.log(
+      `${pad(String(row.lp.n), 5)}  ${pad(runMs.toFixed(3), 11)}  ${pad((runMs / peerCold).toFixed(3), 6)}  ` +
+        `${pad(oursMs.toFixed(3), 14)}  ${pad((oursMs / peerCold).toFixed(3), 6)}  ${pad(peerCold.toFixed(3), 7)}`,
+    );
   });
   const small = lpRows[0]!;
   const peerSmall = both((run) => run.lp[0]!.cold);

@@ -17,7 +17,7 @@
 import highsImport, { type Highs, type Model as HighsModel } from "highs";
 import jsLpImport from "javascript-lp-solver";
 import { Matrix, pseudoInverse } from "ml-matrix";
-import type { OptimizeErrorCode } from "./errors.js";
+import { OptimizeError, type OptimizeErrorCode } from "./errors.js";
 
 /** A decision variable. */
 export interface LpVariable {
@@ -53,7 +53,15 @@ export interface LpProblem {
 /** Outcome of an LP/MILP solve. */
 export type LpStatus = "optimal" | "infeasible" | "unbounded" | "limit" | "error";
 
-/** Result of an LP/MILP solve. */
+/**
+ * Result of an LP/MILP solve.
+ *
+ * Every answer comes by index as typed arrays (`columnValues`, `rowDuals`, `columnDuals`, in the order
+ * of the problem's `variables` and `constraints`) and by name as records (`values`, `duals`,
+ * `reducedCosts`). A kept HiGHS model made with `records: false` leaves the records empty: at 2,000
+ * variables, building them took about a quarter of a warm re-solve's time (CPU profile of
+ * bench/optimize.ts).
+ */
 export interface LpResult {
   status: LpStatus;
   /** Registry code when the status is not "optimal". */
@@ -61,12 +69,21 @@ export interface LpResult {
   message: string;
   /** Optimal objective value (NaN unless optimal). */
   objective: number;
-  /** Primal values by variable name (every variable present). */
+  /** Primal values by variable name (every variable present when optimal; empty otherwise). */
   values: Record<string, number>;
   /** Shadow price ∂obj* / ∂(binding limit) by constraint name; 0 where no limit binds. */
   duals: Record<string, number>;
   /** Reduced costs ∂obj* / ∂(binding bound) by variable name; 0 for a variable strictly inside its bounds. */
   reducedCosts: Record<string, number>;
+  /** `values` by index, in the order of `variables`; length 0 unless optimal. */
+  columnValues: Float64Array;
+  /**
+   * `duals` by index, in the order of `constraints`; length 0 unless optimal, and for a MILP whose
+   * integer-fixed LP (the source of its duals) failed.
+   */
+  rowDuals: Float64Array;
+  /** `reducedCosts` by index, in the order of `variables`; length 0 whenever `rowDuals` is. */
+  columnDuals: Float64Array;
   /** Which solver produced it. */
   solver: "highs" | "javascript-lp-solver";
   /** Simplex iterations of this solve (HiGHS only; a warm re-solve shows its few pivots here). */
@@ -83,7 +100,19 @@ function emptyResult(
   code: OptimizeErrorCode,
   message: string,
 ): LpResult {
-  return { status, code, message, objective: Number.NaN, values: {}, duals: {}, reducedCosts: {}, solver };
+  return {
+    status,
+    code,
+    message,
+    objective: Number.NaN,
+    values: {},
+    duals: {},
+    reducedCosts: {},
+    columnValues: new Float64Array(0),
+    rowDuals: new Float64Array(0),
+    columnDuals: new Float64Array(0),
+    solver,
+  };
 }
 
 /** Checks names and bounds; returns a message or undefined. */
@@ -135,10 +164,20 @@ export function loadHighs(): Promise<Highs> {
 
 /** A kept HiGHS model for repeated solves: change costs or limits, re-solve warm, dispose at the end. */
 export interface HighsLp {
-  /** Solves (warm after the first call: HiGHS keeps its basis) and reports in the problem's names. */
+  /**
+   * Solves (warm after the first call: HiGHS keeps its basis) and reports by index and, on first read
+   * of a record, by the problem's names.
+   */
   solve(): LpResult;
-  /** Changes objective coefficients by variable name. */
+  /** Changes objective coefficients by variable name; names not in the problem are ignored. */
   setCosts(costs: Readonly<Record<string, number>>): void;
+  /**
+   * Changes every objective coefficient at once, by index in the order of the problem's `variables`.
+   * Only entries that differ from the model's current cost are sent to HiGHS, so re-stating an
+   * unchanged vector costs one comparison per entry. The vector is read during the call, not kept.
+   * @throws OptimizeError `OPTIMIZE_INVALID_PROBLEM` when `costs.length` is not the number of variables.
+   */
+  setCostVector(costs: ArrayLike<number>): void;
   /** Changes a variable's bounds. */
   setVariableBounds(name: string, lb: number, ub: number): void;
   /** Changes a constraint's limits. */
@@ -224,14 +263,47 @@ function toModelData(highs: Highs, p: LpProblem, col: ReadonlyMap<string, number
   };
 }
 
-/** { name: value } for parallel arrays. */
+/** { name: value } for parallel arrays; empty when `values` is (no answer of that kind). */
 function namedRecord(items: readonly { name: string }[], values: ArrayLike<number>): Record<string, number> {
   const record: Record<string, number> = {};
+  if (values.length === 0) return record;
   for (let k = 0; k < items.length; k++) record[items[k]!.name] = values[k] ?? 0;
   return record;
 }
 
-function readHighs(highs: Highs, model: HighsModel, p: LpProblem, costs: Float64Array): LpResult {
+/**
+ * An optimal HiGHS result over the given arrays; the by-name records are built from them unless the
+ * caller asked for arrays only (`HighsLpOptions.records: false`).
+ */
+function optimalHighsResult(
+  p: LpProblem,
+  objective: number,
+  columnValues: Float64Array,
+  rowDuals: Float64Array,
+  columnDuals: Float64Array,
+  records: boolean,
+): LpResult {
+  return {
+    status: "optimal",
+    message: "optimal",
+    objective,
+    values: records ? namedRecord(p.variables, columnValues) : {},
+    duals: records ? namedRecord(p.constraints, rowDuals) : {},
+    reducedCosts: records ? namedRecord(p.variables, columnDuals) : {},
+    columnValues,
+    rowDuals,
+    columnDuals,
+    solver: "highs",
+  };
+}
+
+function readHighs(
+  highs: Highs,
+  model: HighsModel,
+  p: LpProblem,
+  costs: Float64Array,
+  records: boolean,
+): LpResult {
   const ms = model.getModelStatus();
   const st = highs.constants.modelStatus;
   if (ms === st.infeasible)
@@ -247,16 +319,17 @@ function readHighs(highs: Highs, model: HighsModel, p: LpProblem, costs: Float64
     );
   if (ms !== st.optimal && ms !== st.empty)
     return emptyResult("highs", "error", "OPTIMIZE_SOLVER_FAILED", `HiGHS model status ${ms}`);
+  // getSolution's arrays are JavaScript-owned copies (highs types.d.ts, `Solution`): kept as they are.
   const sol = model.getSolution();
-  const vars = p.variables;
+  const x = sol.colValue;
   let objective = 0;
-  for (let j = 0; j < vars.length; j++) objective += costs[j]! * (sol.colValue[j] ?? 0);
-  const values = namedRecord(vars, sol.colValue);
+  for (let j = 0; j < p.variables.length; j++) objective += costs[j]! * (x[j] ?? 0);
   // HiGHS reports row duals y with c − Aᵀy = reduced cost, which is ∂obj* / ∂(row limit) in both senses.
-  const milp = isMilp(p);
-  const duals = milp ? {} : namedRecord(p.constraints, sol.rowDual);
-  const reducedCosts = milp ? {} : namedRecord(vars, sol.colDual);
-  return { status: "optimal", message: "optimal", objective, values, duals, reducedCosts, solver: "highs" };
+  // A MILP's duals are not meaningful in HiGHS; the caller fills them from the integer-fixed LP.
+  const none = new Float64Array(0);
+  return isMilp(p)
+    ? optimalHighsResult(p, objective, x, none, none, records)
+    : optimalHighsResult(p, objective, x, sol.rowDual, sol.colDual, records);
 }
 
 /** Options of {@link createHighsLp}. */
@@ -267,6 +340,11 @@ export interface HighsLpOptions {
    * `simplex_strategy` here turns off the automatic choice described at {@link createHighsLp}.
    */
   highsOptions?: Readonly<Record<string, boolean | number | string>>;
+  /**
+   * Fill the by-name records (`values`, `duals`, `reducedCosts`) of every result. Default true; false
+   * for a caller that reads the typed arrays only (large LPs re-solved every cycle).
+   */
+  records?: boolean;
 }
 
 /**
@@ -283,6 +361,13 @@ export interface HighsLpOptions {
  * while after a change of bounds or limits the basis stays dual feasible and the dual simplex is the
  * natural restart (Chvátal 1983, "Linear Programming", ch. 10, sensitivity analysis; common practice).
  * Measured here at 2,000 variables: 3–5 pivots instead of 4–8 and 15–20 % less time per re-solve.
+ * The primal edge weights stay HiGHS's automatic choice: forcing devex (`simplex_primal_edge_weight_strategy`
+ * 1) gave the same pivots and a devex/default time ratio of 0.985–1.021 (median 1.001) at 500 variables and
+ * 0.950–1.030 (median 0.988) at 2,000, over 5 random LPs × 2 cost changes each, while two identical default
+ * models differed by 0.977–1.014 and 0.956–1.040: no effect beyond noise. Steepest edge was 2–3.5× slower.
+ *
+ * For a caller that holds costs and answers by index, `setCostVector` and the result's typed arrays skip
+ * the name look-ups and the records (see {@link LpResult}).
  */
 export function createHighsLp(highs: Highs, p: LpProblem, options: HighsLpOptions = {}): HighsLp {
   return createChecked(highs, p, validate(p), options);
@@ -320,6 +405,7 @@ function createChecked(
   let colChanged = false;
   let rowChanged = false;
   let solved = false;
+  const records = options.records ?? true;
   const autoStrategy = options.highsOptions?.simplex_strategy === undefined;
   // HiGHS's simplex_strategy values: 1 serial dual, 4 primal.
   let strategy = 1;
@@ -351,27 +437,28 @@ function createChecked(
         flush(model);
         model.run();
         solved = true;
-        const r = readHighs(highs, model, p, costs);
-        r.iterations = Number(model.info.get("simplex_iteration_count"));
+        let r = readHighs(highs, model, p, costs, records);
+        const iterations = Number(model.info.get("simplex_iteration_count"));
         if (r.status === "optimal" && isMilp(p)) {
           // Duals of a MILP: those of the LP with the integers fixed at their optimal values.
+          const x = r.columnValues;
           const fixed: LpProblem = {
             ...p,
             variables: p.variables.map((v, j) =>
               v.integer
-                ? { ...v, integer: false, lb: r.values[v.name]!, ub: r.values[v.name]!, cost: costs[j]! }
+                ? { ...v, integer: false, lb: x[j]!, ub: x[j]!, cost: costs[j]! }
                 : { ...v, cost: costs[j]! },
             ),
           };
           const lp = createHighsLp(highs, fixed);
           try {
             const f = lp.solve();
-            r.duals = f.duals;
-            r.reducedCosts = f.reducedCosts;
+            r = optimalHighsResult(p, r.objective, x, f.rowDuals, f.columnDuals, records);
           } finally {
             lp.dispose();
           }
         }
+        r.iterations = iterations;
         return r;
       } catch (err) {
         return emptyResult("highs", "error", "OPTIMIZE_SOLVER_FAILED", `HiGHS threw: ${String(err)}`);
@@ -383,6 +470,21 @@ function createChecked(
         const j = col.get(name);
         const c = newCosts[name]!;
         if (j === undefined || costs[j] === c) continue;
+        costs[j] = c;
+        costMask[j] = 1;
+        costChanged = true;
+      }
+    },
+    setCostVector(newCosts) {
+      if (newCosts.length !== nCols)
+        throw new OptimizeError(
+          "OPTIMIZE_INVALID_PROBLEM",
+          `setCostVector: ${newCosts.length} costs for ${nCols} variables`,
+        );
+      if (!model) return;
+      for (let j = 0; j < nCols; j++) {
+        const c = newCosts[j]!;
+        if (costs[j] === c) continue;
         costs[j] = c;
         costMask[j] = 1;
         costChanged = true;
@@ -583,6 +685,9 @@ export function solveLpJs(p: LpProblem): LpResult {
     values,
     duals,
     reducedCosts,
+    columnValues: Float64Array.from(p.variables, (v) => values[v.name] ?? 0),
+    rowDuals: Float64Array.from(p.constraints, (c) => duals[c.name] ?? 0),
+    columnDuals: Float64Array.from(p.variables, (v) => reducedCosts[v.name] ?? 0),
     solver: "javascript-lp-solver",
   };
 }

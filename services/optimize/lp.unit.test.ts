@@ -1,5 +1,6 @@
 import { beforeAll, describe, expect, test } from "vitest";
-import { createHighsLp, type LpProblem, loadHighs, solveLpHighs, solveLpJs } from "./lp.js";
+import { OptimizeError } from "./errors.js";
+import { createHighsLp, type LpProblem, type LpResult, loadHighs, solveLpHighs, solveLpJs } from "./lp.js";
 
 let highs: Awaited<ReturnType<typeof loadHighs>>;
 beforeAll(async () => {
@@ -229,5 +230,200 @@ describe("LP and MILP", () => {
     expect(r.status).toBe("error");
     expect(r.code).toBe("OPTIMIZE_INVALID_PROBLEM");
     expect(solveLpHighs(highs, p).message).toContain('"y"');
+  });
+});
+
+/** The result's typed arrays turned into records by the problem's names (what the by-name API promises). */
+const recordsOfArrays = (p: LpProblem, r: LpResult) => ({
+  values: Object.fromEntries(p.variables.map((v, j) => [v.name, r.columnValues[j]])),
+  duals: Object.fromEntries(p.constraints.map((c, i) => [c.name, r.rowDuals[i]])),
+  reducedCosts: Object.fromEntries(p.variables.map((v, j) => [v.name, r.columnDuals[j]])),
+});
+
+/**
+ * A HiGHS handle whose models record every `changeColsCost` call (a copy of the mask, taken at the call:
+ * the model clears its mask afterwards). The models are real HiGHS models; only that method is observed.
+ */
+function observedHighs(calls: number[][]): typeof highs {
+  return Object.create(highs, {
+    createModel: {
+      value: (data: Parameters<typeof highs.createModel>[0]) => {
+        const model = highs.createModel(data);
+        return new Proxy(model, {
+          get(target, key) {
+            if (key === "changeColsCost")
+              return (selection: { kind: string; mask?: ArrayLike<number> }, costs: Float64Array) => {
+                calls.push(Array.from(selection.mask ?? []));
+                return target.changeColsCost(selection as never, costs);
+              };
+            const v = Reflect.get(target, key);
+            return typeof v === "function" ? v.bind(target) : v;
+          },
+        });
+      },
+    },
+  }) as typeof highs;
+}
+
+describe("indexed HiGHS API", () => {
+  test("typed arrays by index equal the records by name, for HiGHS and javascript-lp-solver", () => {
+    for (const p of [handSolved, blend, mixed, milp]) {
+      for (const r of [solveLpHighs(highs, p), solveLpJs(p)]) {
+        // then
+        expect(r.status).toBe("optimal");
+        expect(r.columnValues).toHaveLength(p.variables.length);
+        expect(r.rowDuals).toHaveLength(p.constraints.length);
+        expect(r.columnDuals).toHaveLength(p.variables.length);
+        const fromArrays = recordsOfArrays(p, r);
+        expect(r.values).toEqual(fromArrays.values);
+        expect(r.duals).toEqual(fromArrays.duals);
+        expect(r.reducedCosts).toEqual(fromArrays.reducedCosts);
+      }
+    }
+  });
+
+  test("a MILP's indexed duals are those of the LP with the integers fixed", () => {
+    // given
+    const r = solveLpHighs(highs, milp);
+    const x = r.columnValues;
+    const fixed: LpProblem = {
+      ...milp,
+      variables: milp.variables.map((v, j) => (v.integer ? { ...v, integer: false, lb: x[j], ub: x[j] } : v)),
+    };
+    // when
+    const f = solveLpHighs(highs, fixed);
+    // then
+    expect(r.rowDuals).toEqual(f.rowDuals);
+    expect(r.columnDuals).toEqual(f.columnDuals);
+    expect(r.duals).toEqual(f.duals);
+  });
+
+  test("a result that is not optimal has empty arrays and empty records", () => {
+    const p: LpProblem = {
+      sense: "min",
+      variables: [{ name: "x", cost: 1, ub: 1 }],
+      constraints: [{ name: "demand", coeffs: { x: 1 }, lb: 2 }],
+    };
+    for (const r of [solveLpHighs(highs, p), solveLpJs(p)]) {
+      expect(r.status).toBe("infeasible");
+      expect([r.columnValues.length, r.rowDuals.length, r.columnDuals.length]).toEqual([0, 0, 0]);
+      expect([r.values, r.duals, r.reducedCosts]).toEqual([{}, {}, {}]);
+    }
+  });
+
+  for (const [name, p, costs] of [
+    ["blending", blend, [0.45, 0.31, 0.51]],
+    ["mixed", mixed, [1.5, 2, -0.25]],
+  ] as const) {
+    test(`a warm re-solve after setCostVector equals a cold HiGHS solve (${name})`, () => {
+      // given a kept model solved at the original costs
+      const lp = createHighsLp(highs, p);
+      try {
+        lp.solve();
+        // when
+        lp.setCostVector(costs);
+        const warm = lp.solve();
+        // then: the reference is a fresh HiGHS model of the changed problem
+        const cold = solveLpHighs(highs, {
+          ...p,
+          variables: p.variables.map((v, j) => ({ ...v, cost: costs[j]! })),
+        });
+        expect(warm.status).toBe("optimal");
+        expect(warm.objective).toBeCloseTo(cold.objective, 9);
+        for (let j = 0; j < p.variables.length; j++) {
+          expect(warm.columnValues[j]).toBeCloseTo(cold.columnValues[j]!, 9);
+          expect(warm.columnDuals[j]).toBeCloseTo(cold.columnDuals[j]!, 9);
+        }
+        for (let i = 0; i < p.constraints.length; i++)
+          expect(warm.rowDuals[i]).toBeCloseTo(cold.rowDuals[i]!, 9);
+      } finally {
+        lp.dispose();
+      }
+    });
+  }
+
+  test("setCostVector gives the same model state and result as setCosts by name", () => {
+    // given two kept models of the same LP
+    const byIndex = createHighsLp(highs, blend);
+    const byName = createHighsLp(highs, blend);
+    try {
+      byIndex.solve();
+      byName.solve();
+      // when
+      byIndex.setCostVector(Float64Array.of(0.4, 0.5, 0.3));
+      byName.setCosts({ crudeA: 0.4, crudeB: 0.5, crudeC: 0.3 });
+      const a = byIndex.solve();
+      const b = byName.solve();
+      // then
+      expect(a).toEqual(b);
+    } finally {
+      byIndex.dispose();
+      byName.dispose();
+    }
+  });
+
+  test("setCostVector sends only the changed entries, and nothing when no entry changed", () => {
+    // given a kept model whose cost changes are observed
+    const calls: number[][] = [];
+    const lp = createHighsLp(observedHighs(calls), mixed);
+    try {
+      const cold = lp.solve();
+      // when the same costs are re-stated
+      lp.setCostVector(mixed.variables.map((v) => v.cost));
+      const same = lp.solve();
+      // then nothing is sent and HiGHS does no pivot
+      expect(calls).toEqual([]);
+      expect(same.iterations).toBe(0);
+      expect(same.objective).toBe(cold.objective);
+      // when two of three entries change
+      lp.setCostVector([1, 2.5, -2]);
+      lp.solve();
+      // then one batch with exactly those entries marked
+      expect(calls).toEqual([[0, 1, 1]]);
+    } finally {
+      lp.dispose();
+    }
+  });
+
+  test("setCostVector refuses a vector of the wrong length with a typed error", () => {
+    const lp = createHighsLp(highs, blend);
+    try {
+      let caught: unknown;
+      try {
+        lp.setCostVector([1, 2]);
+      } catch (err) {
+        caught = err;
+      }
+      expect(caught).toBeInstanceOf(OptimizeError);
+      expect((caught as OptimizeError).code).toBe("OPTIMIZE_INVALID_PROBLEM");
+    } finally {
+      lp.dispose();
+    }
+  });
+
+  test("a model made with records: false answers by index only, with the same numbers", () => {
+    // given the same LP kept twice, with and without records
+    const full = createHighsLp(highs, blend);
+    const bare = createHighsLp(highs, blend, { records: false });
+    try {
+      // when
+      const a = full.solve();
+      const b = bare.solve();
+      // then: empty records, identical arrays, and the arrays match the records of the full result
+      expect(b.status).toBe("optimal");
+      expect(b.values).toEqual({});
+      expect(b.duals).toEqual({});
+      expect(b.reducedCosts).toEqual({});
+      expect([...b.columnValues]).toEqual([...a.columnValues]);
+      expect([...b.rowDuals]).toEqual([...a.rowDuals]);
+      expect(recordsOfArrays(blend, b)).toEqual({
+        values: a.values,
+        duals: a.duals,
+        reducedCosts: a.reducedCosts,
+      });
+    } finally {
+      full.dispose();
+      bare.dispose();
+    }
   });
 });
