@@ -18,7 +18,9 @@
  * - convergence: the KKT residual below tolerance, or a feasible point where the QP step predicts a
  *   merit improvement at rounding level; a second-order correction (Nocedal & Wright §15.6)
  *   is tried when a full step is rejected;
- * - QP sub-problems are solved by `quadprog` (./qp.ts);
+ * - QP sub-problems are solved by the Goldfarb–Idnani (1983) dual method on typed arrays (./qp.ts;
+ *   the `quadprog` package, the same method, is its test reference); if BFGS loses definiteness to
+ *   rounding, it restarts from the identity;
  * - globalization by the L1 exact-penalty merit function with one weight per constraint, updated as in
  *   Powell (1978) and SLSQP (Kraft 1988): ρ_i ← max(|λ_i|, ½(ρ_i + |λ_i|)); a single monotone weight
  *   took 58 iterations on the Williams–Otto problem (LIBRARY-NOTES.md); Armijo backtracking with
