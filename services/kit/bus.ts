@@ -65,7 +65,10 @@ export interface Subscription {
 export interface Bus {
   readonly transport: "mqtt" | "nats" | "embedded";
   readonly capabilities: Capabilities;
-  /** Publishes and resolves when the broker has it (QoS 1 PUBACK, JetStream PubAck, or flushed for core NATS). */
+  /**
+   * Publishes and resolves when the broker has it (QoS 1 PUBACK, JetStream PubAck); a core NATS publish
+   * (no stream) resolves once queued, and leaves with the others of the same event-loop turn (nats.ts).
+   */
   publish(subject: string, payload: Uint8Array, options?: PublishOptions): Promise<void>;
   /** Subscribes `handler` to a subject filter. Messages of one subscription are handled one at a time, in order. */
   subscribe(filter: string, handler: RawHandler, options?: SubscribeOptions): Promise<Subscription>;

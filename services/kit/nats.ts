@@ -3,6 +3,14 @@
  * durability: a stream over each site's subjects, publishes with `Nats-Msg-Id` = event id so the
  * server drops duplicates, durable pull consumers with explicit acks and bounded redelivery, and a
  * KV bucket for state. A NATS cluster is the distributed engine; nothing here replaces it.
+ *
+ * Core publishes are coalesced: nats.js queues a publish and writes its buffer to the socket in a
+ * microtask, so a handler that publishes one event per message costs one socket write per message
+ * (the subscription loop awaits the handler, and the microtask runs before the next message). Here a
+ * core publish goes into an outbox that is handed to nats.js at the end of the event-loop turn
+ * (setImmediate), so the outputs of all messages that arrived in one socket read leave in one write.
+ * Nothing is reordered: every other operation on the connection (JetStream publish, KV, request,
+ * reply, ack, drain) first empties the outbox, and the outbox keeps publish order.
  */
 import {
   AckPolicy,
@@ -55,6 +63,11 @@ export interface NatsBusOptions {
   pass?: string;
   /** Called with errors the adapter cannot return to a caller. */
   onError?: (err: Error) => void;
+  /**
+   * Bytes of coalesced core publishes after which the outbox is handed to nats.js at once rather
+   * than at the end of the event-loop turn. Default 65536 (nats.js itself writes at 32 KiB).
+   */
+  outboxBytes?: number;
 }
 
 /** Connects to NATS, makes sure the configured streams exist, and returns a Bus. */
@@ -99,11 +112,38 @@ class NatsBus implements Bus {
   private kv: KV | undefined;
   private readonly stops = new Set<() => Promise<void>>();
   private closing = false;
+  /** Core publishes not yet handed to nats.js, in publish order (see the module comment). */
+  private outbox: { subject: string; payload: Uint8Array }[] = [];
+  private outboxSize = 0;
+  private outboxTimer: NodeJS.Immediate | undefined;
+  private readonly outboxLimit: number;
 
   constructor(
     private readonly nc: NatsConnection,
     private readonly o: NatsBusOptions,
-  ) {}
+  ) {
+    this.outboxLimit = o.outboxBytes ?? 65_536;
+  }
+
+  /** Hands the coalesced core publishes to nats.js, in order (it writes them in one socket write). */
+  private readonly flushOutbox = (): void => {
+    if (this.outboxTimer !== undefined) {
+      clearImmediate(this.outboxTimer);
+      this.outboxTimer = undefined;
+    }
+    if (this.outbox.length === 0) return;
+    const list = this.outbox;
+    this.outbox = [];
+    this.outboxSize = 0;
+    for (const m of list) {
+      try {
+        this.nc.publish(m.subject, m.payload);
+      } catch (err) {
+        // publish() made the refusable ones at once; only a connection closed within this turn gets here.
+        this.o.onError?.(err as Error);
+      }
+    }
+  };
 
   async init(): Promise<void> {
     this.js = jetstream(this.nc);
@@ -144,11 +184,26 @@ class NatsBus implements Bus {
     if (this.closing) throw new KitError("KIT_BUS_CLOSED", "publish after close()");
     assertSubject(subject);
     if (this.streamOf(subject)) {
+      this.flushOutbox();
       await this.js.publish(subject, payload, options.msgId ? { msgID: options.msgId } : {});
     } else {
-      this.nc.publish(subject, payload);
+      // A publish nats.js would refuse (closed connection, payload over the server's max_payload) is
+      // made at once, so that the caller gets nats.js's error as before.
+      const max = this.nc.info?.max_payload;
+      if (this.nc.isClosed() || (max !== undefined && payload.byteLength > max)) {
+        this.flushOutbox();
+        this.nc.publish(subject, payload);
+      } else {
+        this.outbox.push({ subject, payload });
+        this.outboxSize += payload.byteLength;
+        if (this.outboxSize >= this.outboxLimit) this.flushOutbox();
+        else this.outboxTimer ??= setImmediate(this.flushOutbox);
+      }
     }
-    if (options.retain) await (await this.state()).put(subject, payload);
+    if (options.retain) {
+      this.flushOutbox();
+      await (await this.state()).put(subject, payload);
+    }
   }
 
   async subscribe(
@@ -180,7 +235,14 @@ class NatsBus implements Bus {
             subject: m.subject,
             payload: m.data,
             redelivered: false,
-            ...(m.reply ? { respond: async (p: Uint8Array) => void m.respond(p) } : {}),
+            ...(m.reply
+              ? {
+                  respond: async (p: Uint8Array) => {
+                    this.flushOutbox();
+                    m.respond(p);
+                  },
+                }
+              : {}),
           });
         } catch (err) {
           this.o.onError?.(err as Error);
@@ -232,9 +294,13 @@ class NatsBus implements Bus {
       for await (const m of messages) {
         try {
           await handler({ subject: m.subject, payload: m.data, redelivered: m.redelivered });
+          // The handler's core publishes go on the wire before the ack, so a crash cannot ack a
+          // message whose outputs were never sent.
+          this.flushOutbox();
           m.ack();
         } catch (err) {
           this.o.onError?.(err as Error);
+          this.flushOutbox();
           // Back off before the redelivery; max_deliver bounds the attempts.
           m.nak(1000);
         }
@@ -259,6 +325,7 @@ class NatsBus implements Bus {
     options: { timeoutMs?: number } = {},
   ): Promise<Uint8Array> {
     assertSubject(subject);
+    this.flushOutbox();
     try {
       const reply = await this.nc.request(subject, payload, { timeout: options.timeoutMs ?? 5000 });
       return reply.data;
@@ -271,6 +338,7 @@ class NatsBus implements Bus {
 
   async readState(subject: string): Promise<Uint8Array | undefined> {
     assertSubject(subject);
+    this.flushOutbox();
     const entry = await (await this.state()).get(subject);
     return entry && entry.operation === "PUT" ? entry.value : undefined;
   }
@@ -279,6 +347,7 @@ class NatsBus implements Bus {
     if (this.closing) return;
     this.closing = true;
     await Promise.all([...this.stops].map((s) => s()));
+    this.flushOutbox();
     await this.nc.drain();
   }
 }
