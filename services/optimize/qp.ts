@@ -483,16 +483,7 @@ function solveWithQuadprog(problem: QpProblem): QpResult {
   }
   if (q === 0) bvec[1] = -1;
 
-  const failed = (status: QpStatus, message: string): QpResult => ({
-    status,
-    x: new Float64Array(n).fill(Number.NaN),
-    objective: Number.NaN,
-    equalityMultipliers: new Float64Array(mEq),
-    inequalityMultipliers: new Float64Array(mIn),
-    lowerMultipliers: new Float64Array(n),
-    upperMultipliers: new Float64Array(n),
-    message,
-  });
+  const failed = (status: QpStatus, message: string): QpResult => failedResult(n, mEq, mIn, status, message);
 
   let res: QuadprogResult;
   try {
@@ -534,17 +525,10 @@ function solveWithQuadprog(problem: QpProblem): QpResult {
   for (let k = 0; k < mIn; k++) inequalityMultipliers[k] = lag[col++] ?? 0;
   for (const j of lowerIdx) lowerMultipliers[j] = lag[col++] ?? 0;
   for (const j of upperIdx) upperMultipliers[j] = lag[col++] ?? 0;
-  let objective = 0;
-  for (let i = 0; i < n; i++) {
-    const hRow = problem.hessian[i]!;
-    let hx = 0;
-    for (let j = 0; j < n; j++) hx += (hRow[j] ?? 0) * x[j]!;
-    objective += x[i]! * (0.5 * hx + (problem.linear[i] ?? 0));
-  }
   return {
     status: "optimal",
     x,
-    objective,
+    objective: objectiveAt(problem, x),
     equalityMultipliers,
     inequalityMultipliers,
     lowerMultipliers,
