@@ -39,7 +39,10 @@ describe("the demo in a browser", () => {
 
     // The loop's first validated proposal waits for an operator (advisory mode, the default).
     const validatedMs = await loop.suite.firstValidated;
-    const awaiting = loop.ofType("rto.validation.v1").find((v) => v.data.next === "await-approval");
+    // The suite's own watcher and this test's are two connections: the event may reach ours a little later.
+    const waiting = () => loop.ofType("rto.validation.v1").find((v) => v.data.next === "await-approval");
+    await expect.poll(waiting, { timeout: 10_000 }).toBeDefined();
+    const awaiting = waiting();
     expect(awaiting, "a validated proposal waiting for approval").toBeDefined();
     const proposalId = awaiting?.data.proposalId ?? "";
     console.log(`first validated proposal after ${(validatedMs / 1000).toFixed(1)} s of wall time`);
