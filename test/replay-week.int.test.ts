@@ -58,7 +58,13 @@ const ROOT = new URL("../", import.meta.url).pathname;
 const WEEK_S = 7 * 86_400;
 const PERIOD_S = 60;
 const SEED = 11;
-const SCALE = 50_000;
+/**
+ * Plant seconds per wall second in the live run: a week in about 50 s. At 50,000 (12 s) a tag's stale
+ * limit of 600 s was 12 ms of wall time, and under CI's parallel load the live run lost 12–25 of its
+ * 28 snapshots (three failures at stop 10), most likely to values judged stale when the services fell
+ * behind; 12,500 gives them 4× more time.
+ */
+const SCALE = 12_500;
 const T0 = Date.UTC(2026, 0, 5, 0, 0, 0);
 
 function weekSiteModel(): SiteModel {
@@ -107,11 +113,9 @@ describe("a simulated week: live on Mosquitto and replayed from CSV", () => {
 
   it("gives the same snapshots, and the replay draws its progress bar", async () => {
     const site = testSite("week");
-    // The live week is a backlog of 10,080 batches for a subscriber that may lag. On this machine's
-    // long-running shared Mosquitto it twice gave 3 and 5 snapshots instead of 28 while fresh brokers
-    // gave 28; the likeliest cause is the default max_queued_messages (1000), which drops QoS 1
-    // messages to a lagging subscriber silently. So unless MQTT_URL names a broker, the test runs its
-    // own Mosquitto with an unlimited queue, as DEVELOPERS.md says of test-started brokers.
+    // The live week is a backlog of 10,080 batches for subscribers that may lag; unless MQTT_URL names
+    // a broker, it runs on a Mosquitto of its own with an unlimited queue (DEVELOPERS.md), away from
+    // the other tests' traffic.
     own = process.env.MQTT_URL ? undefined : await startMosquitto().catch(() => undefined);
     const url = own?.url ?? (await mqttUrl());
     const bus = { transport: "mqtt" as const, url };
