@@ -104,6 +104,18 @@ function failedResult(n: number, mEq: number, mIn: number, status: QpStatus, mes
   };
 }
 
+/** An optimal result at `x` with the given multipliers. */
+function optimalResult(
+  problem: QpProblem,
+  x: Float64Array,
+  multipliers: Pick<
+    QpResult,
+    "equalityMultipliers" | "inequalityMultipliers" | "lowerMultipliers" | "upperMultipliers"
+  >,
+): QpResult {
+  return { status: "optimal", x, objective: objectiveAt(problem, x), ...multipliers, message: "" };
+}
+
 function objectiveAt(problem: QpProblem, x: Float64Array): number {
   const n = x.length;
   let objective = 0;
@@ -240,7 +252,6 @@ function solveDual(problem: QpProblem, options: QpOptions): QpResult {
   const z = new Float64Array(n);
   const r = new Float64Array(n);
   const maxIter = options.maxIterations ?? 10 * (n + q);
-  let xScale = 1;
 
   /** n_cᵀ·v, with the bounds' normals (±unit vectors) taken as such: 16 of Williams–Otto's 22 rows. */
   const dotNormal = (c: number, v: Float64Array, offset: number): number => {
@@ -296,7 +307,7 @@ function solveDual(problem: QpProblem, options: QpOptions): QpResult {
     if (iter >= maxIter)
       return failedResult(n, mEq, mIn, "numerical-failure", `no solution after ${maxIter} iterations`);
     // Step 1: the most violated constraint, by its distance (slack / ‖n‖).
-    xScale = 1;
+    let xScale = 1;
     for (let j = 0; j < n; j++) xScale = Math.max(xScale, Math.abs(x[j]!));
     let p = -1;
     let worst = 0;
@@ -414,16 +425,12 @@ function solveDual(problem: QpProblem, options: QpOptions): QpResult {
         upperMultipliers[owner[c]!] = m;
     }
   }
-  return {
-    status: "optimal",
-    x,
-    objective: objectiveAt(problem, x),
+  return optimalResult(problem, x, {
     equalityMultipliers,
     inequalityMultipliers,
     lowerMultipliers,
     upperMultipliers,
-    message: "",
-  };
+  });
 }
 
 const allFinite = (a: ArrayLike<number>): boolean => {
@@ -525,14 +532,10 @@ function solveWithQuadprog(problem: QpProblem): QpResult {
   for (let k = 0; k < mIn; k++) inequalityMultipliers[k] = lag[col++] ?? 0;
   for (const j of lowerIdx) lowerMultipliers[j] = lag[col++] ?? 0;
   for (const j of upperIdx) upperMultipliers[j] = lag[col++] ?? 0;
-  return {
-    status: "optimal",
-    x,
-    objective: objectiveAt(problem, x),
+  return optimalResult(problem, x, {
     equalityMultipliers,
     inequalityMultipliers,
     lowerMultipliers,
     upperMultipliers,
-    message: "",
-  };
+  });
 }
