@@ -1,7 +1,8 @@
 /**
- * Optimizer benchmark: our SQP against SciPy SLSQP on the Williams–Otto reactor, and our HiGHS LP
- * path (cold and warm, by name and by index) against SciPy `linprog(method="highs")` on random sparse
- * LPs, with HiGHS's own cost of a run that has nothing to do. Both sides run in the same process tree
+ * Optimizer benchmark: our SQP against SciPy SLSQP on the Williams–Otto reactor, and our LP path
+ * (HiGHS cold; warm re-solves by our warm primal simplex, by name and by index, and by HiGHS itself)
+ * against SciPy `linprog(method="highs")` on random sparse LPs, with HiGHS's own cost of a run that has
+ * nothing to do. Both sides run in the same process tree
  * in the same run; Python times itself with time.perf_counter.
  *
  * Run: npx tsx bench/optimize.ts
@@ -232,8 +233,9 @@ async function main() {
      * setCostVector and the values read through the typed array; "stage": what the optimize stage does
      * each cycle (costs by name, every bound and limit re-stated, and the three records read).
      */
-    const warm = (costs: number[], mode: "name" | "index" | "stage") => {
-      const model = createHighsLp(highs, p, { records: mode !== "index" });
+    const warm = (costs: number[], mode: "name" | "index" | "highs" | "stage") => {
+      const byIndex = mode === "index" || mode === "highs";
+      const model = createHighsLp(highs, p, { records: !byIndex, warmPrimal: mode !== "highs" });
       model.solve();
       const named = [byName(costs), byName(lp.cost)];
       const indexed = [Float64Array.from(costs), Float64Array.from(lp.cost)];
@@ -243,7 +245,7 @@ async function main() {
       let sink = 0;
       // Alternate between the two cost vectors so that every timed re-solve has pivots to do.
       const ms = timeIt(() => {
-        if (mode === "index") model.setCostVector(indexed[flip % 2]!);
+        if (byIndex) model.setCostVector(indexed[flip % 2]!);
         else model.setCosts(named[flip % 2]!);
         if (mode === "stage") {
           for (const v of p.variables)
@@ -256,7 +258,7 @@ async function main() {
             );
         }
         const r = model.solve();
-        if (mode === "index") for (const x of r.columnValues) sink += x;
+        if (byIndex) for (const x of r.columnValues) sink += x;
         if (mode === "stage") sink += (r.values.x0 ?? 0) + (r.duals.r0 ?? 0) + (r.reducedCosts.x0 ?? 0);
         if (flip % 2 === 0) obj = r.objective;
         iterations.push(r.iterations ?? Number.NaN);
@@ -314,8 +316,16 @@ async function main() {
       coldMs,
       jsMs,
       js,
-      big: { name: warm(lp.costWarm, "name"), index: warm(lp.costWarm, "index") },
-      drift: { name: warm(lp.costDrift, "name"), index: warm(lp.costDrift, "index") },
+      big: {
+        name: warm(lp.costWarm, "name"),
+        index: warm(lp.costWarm, "index"),
+        highs: warm(lp.costWarm, "highs"),
+      },
+      drift: {
+        name: warm(lp.costDrift, "name"),
+        index: warm(lp.costDrift, "index"),
+        highs: warm(lp.costDrift, "highs"),
+      },
       cycle: warm(lp.costDrift, "stage"),
       floor: floor(),
     };
@@ -355,38 +365,44 @@ async function main() {
     );
   });
   console.log(
-    "\nwarm: a kept model re-solved after a cost change (HiGHS keeps its basis), against SciPy's cold solve of the\n" +
-      "changed problem (SciPy cannot warm-start). 'large' = 5 % of costs by up to ±20 %; 'drift' = every cost by up\n" +
-      "to ±2 %; 'stage cycle' = drift plus every bound and limit re-stated, as the optimize stage does each cycle.\n" +
-      "by name: setCosts({ name: cost }), solve, results with their by-name records (the default); stage cycle\n" +
-      "also reads them, as the stage does. by index: a model made with records: false, setCostVector(Float64Array),\n" +
-      "solve, all values summed through result.columnValues. pivots: by name / by index.",
+    "\nwarm: a kept model re-solved after a cost change, against SciPy's cold solve of the changed problem (SciPy\n" +
+      "cannot warm-start). 'large' = 5 % of costs by up to ±20 %; 'drift' = every cost by up to ±2 %; 'stage cycle' =\n" +
+      "drift plus every bound and limit re-stated, as the optimize stage does each cycle. Each timed re-solve\n" +
+      "alternates between the changed and the original costs, so every one has pivots to do.\n" +
+      "by name: setCosts({ name: cost }), solve, results with their by-name records (the default; stage cycle also\n" +
+      "reads them, as the stage does). by index: a model made with records: false, setCostVector(Float64Array),\n" +
+      "solve, all values summed through result.columnValues. Both use the kept model's own warm primal simplex\n" +
+      "(the default, warm-simplex.ts); 'HiGHS' is by index with warmPrimal: false, HiGHS re-running from its basis.\n" +
+      "pivots: by name / by index / HiGHS.",
   );
   console.log(
     `${pad("n", 5)}  ${pad("change", 11)}  ${pad("by name", 8)}  ${pad("ratio", 6)}  ${pad("by index", 8)}  ${pad("ratio", 6)}  ` +
-      `${pad("SciPy", 7)}  ${pad("pivots", 6)}  ${pad("|Δobj| rel", 10)}`,
+      `${pad("HiGHS", 7)}  ${pad("ratio", 6)}  ${pad("SciPy", 7)}  ${pad("pivots", 8)}  ${pad("|Δobj| rel", 10)}`,
   );
   lpRows.forEach((row, k) => {
     const peer = before.lp[k]!;
     for (const [label, w, peerMs, ref] of [
       ["large", row.big, both((run) => run.lp[k]!.warm), peer.objWarm],
       ["drift", row.drift, both((run) => run.lp[k]!.drift), peer.objDrift],
-      ["stage cycle", { name: row.cycle, index: undefined }, both((run) => run.lp[k]!.drift), peer.objDrift],
+      ["stage cycle", { name: row.cycle }, both((run) => run.lp[k]!.drift), peer.objDrift],
     ] as const) {
       const rel = (obj: number) => Math.abs(obj - ref) / Math.abs(ref);
-      const idx = w.index;
+      const idx = "index" in w ? w.index : undefined;
+      const hi = "highs" in w ? w.highs : undefined;
+      const cell = (r: { ms: number } | undefined, width: number) => pad(r ? r.ms.toFixed(3) : "—", width);
+      const ratio = (r: { ms: number } | undefined) => pad(r ? (r.ms / peerMs).toFixed(3) : "—", 6);
       console.log(
-        `${pad(String(row.lp.n), 5)}  ${pad(label, 11)}  ${pad(w.name.ms.toFixed(3), 8)}  ${pad((w.name.ms / peerMs).toFixed(3), 6)}  ` +
-          `${pad(idx ? idx.ms.toFixed(3) : "—", 8)}  ${pad(idx ? (idx.ms / peerMs).toFixed(3) : "—", 6)}  ${pad(peerMs.toFixed(3), 7)}  ` +
-          `${pad(`${w.name.iterations}/${idx ? idx.iterations : "—"}`, 6)}  ` +
-          `${pad(Math.max(rel(w.name.obj), idx ? rel(idx.obj) : 0).toExponential(1), 10)}`,
+        `${pad(String(row.lp.n), 5)}  ${pad(label, 11)}  ${cell(w.name, 8)}  ${ratio(w.name)}  ${cell(idx, 8)}  ${ratio(idx)}  ` +
+          `${cell(hi, 7)}  ${ratio(hi)}  ${pad(peerMs.toFixed(3), 7)}  ` +
+          `${pad(`${w.name.iterations}/${idx ? idx.iterations : "—"}/${hi ? hi.iterations : "—"}`, 8)}  ` +
+          `${pad(Math.max(rel(w.name.obj), idx ? rel(idx.obj) : 0, hi ? rel(hi.obj) : 0).toExponential(1), 10)}`,
       );
     }
   });
   console.log(
     "\nHiGHS floor per run: run() on a solved raw HiGHS model with nothing changed (no JavaScript of ours),\n" +
-      "and our indexed solve() with nothing changed (floor + reading the result); ratios against SciPy's cold\n" +
-      "solve of the same LP. No warm re-solve through HiGHS can get below the floor.",
+      "and our indexed solve() with nothing changed (the warm primal simplex's pricing pass + reading the result);\n" +
+      "ratios against SciPy's cold solve of the same LP. No re-solve through HiGHS can get below its floor.",
   );
   console.log(
     `${pad("n", 5)}  ${pad("HiGHS floor", 11)}  ${pad("ratio", 6)}  ${pad("ours unchanged", 14)}  ${pad("ratio", 6)}  ${pad("SciPy", 7)}`,
