@@ -29,7 +29,8 @@ function randomLp(seed: number, n: number, m: number, sense: "min" | "max"): LpP
     // every variable has a finite bound on the side its cost pushes towards, so the LP is bounded
     const cost = (2 * r() - 1) * (sense === "min" ? 1 : -1);
     const pushesUp = sense === "min" ? cost < 0 : cost > 0;
-    if (kind === 0) return { name: `x${j}`, cost: Math.abs(cost) * 0, lb: -Infinity, ub: Infinity };
+    // a free variable costs nothing (any cost would make the LP unbounded)
+    if (kind === 0) return { name: `x${j}`, cost: 0, lb: -Infinity, ub: Infinity };
     if (kind === 1 && !pushesUp) return { name: `x${j}`, cost, lb: x - 3 * r(), ub: Infinity };
     return { name: `x${j}`, cost, lb: x - 3 * r(), ub: x + 3 * r() };
   });
@@ -122,7 +123,9 @@ describe("warm primal simplex on a kept HiGHS model", () => {
           // then
           expect(got.status).toBe("optimal");
           expect(fresh.status).toBe("optimal");
-          expect(Math.abs(got.objective - fresh.objective)).toBeLessThan(1e-9 * Math.max(1, Math.abs(fresh.objective)));
+          expect(Math.abs(got.objective - fresh.objective)).toBeLessThan(
+            1e-9 * Math.max(1, Math.abs(fresh.objective)),
+          );
           expect(kktViolation(withCosts(p, costs), got)).toBeLessThan(1e-8);
           if (got.warmPrimal) warm++;
           pivots += got.iterations ?? 0;
@@ -239,13 +242,21 @@ function columnFormWithBasis(p: LpProblem) {
   const raw = highs.createModel({
     numCols: n,
     numRows: m,
-    sense: p.sense === "max" ? highs.constants.objectiveSense.maximize : highs.constants.objectiveSense.minimize,
+    sense:
+      p.sense === "max" ? highs.constants.objectiveSense.maximize : highs.constants.objectiveSense.minimize,
     colCost: Float64Array.from(p.variables, (v) => v.cost),
     colLower: lp.colLower,
     colUpper: lp.colUpper,
     rowLower: lp.rowLower,
     rowUpper: lp.rowUpper,
-    matrix: { format: "csc", numRows: m, numCols: n, starts: lp.colStart, indices: lp.rowIndex, values: lp.value },
+    matrix: {
+      format: "csc",
+      numRows: m,
+      numCols: n,
+      starts: lp.colStart,
+      indices: lp.rowIndex,
+      values: lp.value,
+    },
   });
   raw.options.set({ output_flag: false });
   raw.run();
@@ -277,7 +288,8 @@ describe("WarmPrimalSimplex", () => {
       let worst = 0;
       for (let j = 0; j < lp.nCols; j++) {
         let dj = cost[j]!;
-        for (let q = lp.colStart[j]!; q < lp.colStart[j + 1]!; q++) dj -= lp.value[q]! * simplex.y[lp.rowIndex[q]!]!;
+        for (let q = lp.colStart[j]!; q < lp.colStart[j + 1]!; q++)
+          dj -= lp.value[q]! * simplex.y[lp.rowIndex[q]!]!;
         worst = Math.max(worst, Math.abs(dj - simplex.d[j]!));
       }
       expect(worst).toBeLessThan(1e-9);
