@@ -6,19 +6,16 @@
  */
 import { readFileSync } from "node:fs";
 import { parse as parseYaml } from "yaml";
+import { ScaledClock, systemClock } from "../kit/clock.js";
 import type { Prices } from "../kit/generated/messages.js";
 import { type Deps, type Service, startRuntime } from "../kit/service.js";
 import type { MarketConfig } from "./config.js";
-import {
-  MarketError,
-  type PriceSchedule,
-  parsePriceSchedule,
-  pricesAt,
-  simulatedTime,
-  wallDelayUntil,
-} from "./schedule.js";
+import { MarketError, type PriceSchedule, parsePriceSchedule, pricesAt, wallDelayUntil } from "./schedule.js";
 
-/** What the market service may be given besides the kit's dependencies. */
+/**
+ * What the market service may be given besides the kit's dependencies. Its `clock` is the wall clock
+ * (default the system's); the service derives its simulated clock from it.
+ */
 export interface MarketDeps extends Deps {
   /** An already parsed schedule (tests, the demo); default: read from `market.scheduleFile`. */
   schedule?: PriceSchedule;
@@ -47,11 +44,19 @@ export function readPriceSchedule(path: string): PriceSchedule {
 export async function start(config: Readonly<MarketConfig>, deps: MarketDeps = {}): Promise<MarketService> {
   // Read the schedule before connecting, so a bad file stops start-up without touching the broker.
   const schedule = deps.schedule ?? readPriceSchedule(config.market.scheduleFile);
-  const rt = await startRuntime("market", config, deps);
   const { timeScale, source } = config.market;
-  const wallStartMs = rt.clock.now();
-  const simStartMs = config.market.startAt ? Date.parse(config.market.startAt) : wallStartMs;
-  const simNow = () => simulatedTime(rt.clock.now(), wallStartMs, simStartMs, timeScale);
+  // `deps.clock` is the wall clock (the timer sleeps in wall time). The events carry simulated time,
+  // the time of the prices they announce, as every service of an accelerated loop stamps its events:
+  // a recorder that looks up "the prices in force at this proposal" compares like with like. (Stamped
+  // in wall time, a price set published after a proposal looked older than it to the recorder.)
+  const wall = deps.clock ?? systemClock;
+  const simStartMs = config.market.startAt ? Date.parse(config.market.startAt) : wall.now();
+  const clock =
+    timeScale === 1 && config.market.startAt === undefined
+      ? wall
+      : new ScaledClock(timeScale, simStartMs, wall);
+  const rt = await startRuntime("market", config, { ...deps, clock });
+  const simNow = () => rt.clock.now();
 
   let last: Prices | undefined;
   let timer: NodeJS.Timeout | undefined;

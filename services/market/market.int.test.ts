@@ -79,6 +79,13 @@ describe("the market service", () => {
     expect(second?.prices.find((p) => p.symbol === "pFeed")?.value).toBe(1.1);
     // 90 simulated seconds at 60× is 1.5 wall seconds: the change must not come early.
     expect(wallElapsedMs).toBeGreaterThanOrEqual(1400);
+    // The events are stamped in simulated time, as the rest of an accelerated loop stamps its own: the
+    // change's event at (or, by the timer's latency × 60, just after) 06:00, not at the wall clock's time.
+    const stamped = (k: number) => Date.parse(seen[k]?.time ?? "");
+    expect(stamped(0)).toBeGreaterThanOrEqual(Date.parse("2026-01-01T05:58:30Z"));
+    expect(stamped(0)).toBeLessThan(Date.parse("2026-01-01T06:00:00Z"));
+    expect(stamped(1)).toBeGreaterThanOrEqual(Date.parse("2026-01-01T06:00:00Z"));
+    expect(stamped(1)).toBeLessThan(Date.parse("2026-01-01T06:02:00Z"));
 
     // A late subscriber finds the current prices as the retained state of the stream.
     const late: Bus = await connectMqtt({ url });

@@ -175,19 +175,6 @@ export function pricesAt(schedule: PriceSchedule, timeMs: number): PricesInForce
   return { effectiveFromMs, nextChangeMs, prices: prices as [Price, ...Price[]] };
 }
 
-/**
- * Simulated time at wall time `wallMs`, when the simulation started at `simStartMs` when the wall
- * clock read `wallStartMs` and runs `timeScale` times faster than real time.
- */
-export function simulatedTime(
-  wallMs: number,
-  wallStartMs: number,
-  simStartMs: number,
-  timeScale: number,
-): number {
-  return simStartMs + (wallMs - wallStartMs) * timeScale;
-}
-
 /** Wall-clock milliseconds until simulated time `simTargetMs` (never negative). */
 export function wallDelayUntil(simTargetMs: number, simNowMs: number, timeScale: number): number {
   return Math.max(0, (simTargetMs - simNowMs) / timeScale);

@@ -1,6 +1,7 @@
 import { describe, expect, it } from "vitest";
 import { parse as parseYaml } from "yaml";
-import { MarketError, parsePriceSchedule, pricesAt, simulatedTime, wallDelayUntil } from "./schedule.js";
+import { ManualClock, ScaledClock } from "../kit/clock.js";
+import { MarketError, parsePriceSchedule, pricesAt, wallDelayUntil } from "./schedule.js";
 
 const YAML = `
 units: { pFeed: USD/kg, pPower: USD/kWh }
@@ -95,8 +96,11 @@ describe("reading a schedule file", () => {
 });
 
 describe("accelerated time", () => {
-  it("runs 60 simulated seconds per wall second at timeScale 60", () => {
-    expect(simulatedTime(1_000_000 + 1000, 1_000_000, at(6), 60)).toBe(at(6, 1));
+  it("runs 60 simulated seconds per wall second at timeScale 60 (the service's ScaledClock over the wall clock)", () => {
+    const wall = new ManualClock(1_000_000);
+    const clock = new ScaledClock(60, at(6), wall);
+    wall.advance(1000);
+    expect(clock.now()).toBe(at(6, 1));
   });
 
   it("waits one wall second for a change one simulated minute ahead at timeScale 60, and never negative", () => {

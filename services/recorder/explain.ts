@@ -3,8 +3,10 @@
  * audit store: snapshot → reconciled → model → prices in force → proposal → validation checks →
  * command → readback, with the cycle's status events and every reason given on the way, as data and
  * as readable text. The prices carry no cycle id: those in force are the latest published at or
- * before the proposal.
+ * before the proposal (or the set the proposal reports using, when a newer one came just before it:
+ * see `pricesInForce`).
  */
+import { pricesInForce } from "./recompute.js";
 import type { EventStore, RecordedEvent } from "./store.js";
 
 /** The stages of the chain, in order. */
@@ -247,10 +249,11 @@ export function explain(store: EventStore, cycleid: string): Explanation {
   store.flush();
   const events = store.byCycle(cycleid);
   const proposal = events.find((e) => e.type === "rto.proposal.v1");
-  const at = proposal?.timeMs ?? events.at(-1)?.timeMs;
-  const prices =
-    at === undefined || events.some((e) => e.type === "rto.prices.v1")
-      ? undefined
-      : store.latest("rto.prices.v1", at);
+  const last = events.at(-1);
+  const prices = events.some((e) => e.type === "rto.prices.v1")
+    ? undefined
+    : proposal
+      ? pricesInForce(store, proposal).event
+      : last && store.latest("rto.prices.v1", last.timeMs);
   return explainCycle(cycleid, events, prices);
 }

@@ -34,6 +34,8 @@ export interface RecomputeInputs {
     prices: "prices" | "proposal";
     current: "snapshot" | "proposal" | "mixed";
   };
+  /** Remarks on how the inputs were chosen (e.g. which price set, when two came close together). */
+  notes: string[];
   /** The recorded events used. */
   events: {
     snapshot?: RecordedEvent;
@@ -88,9 +90,13 @@ export function recordedInputs(store: EventStore, cycleid: string): RecomputeInp
   const recorded = proposalEv.data as Proposal;
   const snapshot = events.filter((e) => e.type === "rto.snapshot.v1").at(-1);
   const model = events.filter((e) => e.type === "rto.model.v1").at(-1);
-  const prices =
-    events.find((e) => e.type === "rto.prices.v1") ?? store.latest("rto.prices.v1", proposalEv.timeMs);
-
+  const notes: string[] = [];
+  let prices = events.find((e) => e.type === "rto.prices.v1");
+  if (!prices) {
+    const inForce = pricesInForce(store, proposalEv);
+    prices = inForce.event;
+    if (inForce.note) notes.push(inForce.note);
+  }
   const fromModel = model ? symbolMap(obj(model.data).parameters, "inForce") : {};
   const parameters = Object.keys(fromModel).length ? fromModel : symbolMap(recorded.parameters, "value");
   const fromPrices = prices ? symbolMap(obj(prices.data).prices, "value") : {};
@@ -134,7 +140,44 @@ export function recordedInputs(store: EventStore, cycleid: string): RecomputeInp
       current: currentSource,
     },
     events: used,
+    notes,
   };
+}
+
+/**
+ * The price set in force at a recorded proposal: the latest recorded at or before it, unless a newer
+ * set reached the recorder before the proposal while the optimizer still solved with the set before
+ * (two services, two deliveries, a few milliseconds apart). Then it is the latest of the last few sets
+ * whose values are the ones the proposal reports using, and the note says so.
+ */
+export function pricesInForce(
+  store: EventStore,
+  proposal: RecordedEvent,
+): { event?: RecordedEvent; note?: string } {
+  const recent = store.recent("rto.prices.v1", proposal.timeMs, RECENT_PRICE_SETS);
+  const reported = symbolMap((proposal.data as Partial<Proposal>).prices, "value");
+  const used = recent.find((e) => samePrices(symbolMap(obj(e.data).prices, "value"), reported)) ?? recent[0];
+  const latest = recent[0];
+  if (!used || !latest || used === latest) return used ? { event: used } : {};
+  return {
+    event: used,
+    note: `prices changed at ${latest.time} (event ${latest.id}), just before the proposal; it used the set of event ${used.id} (${used.time})`,
+  };
+}
+
+/** Price sets looked back over for the one a proposal used. */
+const RECENT_PRICE_SETS = 5;
+
+/** Every price the proposal reports has the same value (to 1e-12 relative) in `set`. */
+function samePrices(set: Record<string, number>, reported: Record<string, number>): boolean {
+  const symbols = Object.keys(reported);
+  return (
+    symbols.length > 0 &&
+    symbols.every((s) => {
+      const v = set[s];
+      return v !== undefined && Math.abs(v - reported[s]!) <= 1e-12 * Math.max(1, Math.abs(v));
+    })
+  );
 }
 
 /**
@@ -182,7 +225,7 @@ export async function recompute(
     ...setpoints.map((s) => (Number.isFinite(s.diff) ? Math.abs(s.diff) : Number.POSITIVE_INFINITY)),
   );
   const agrees = setpoints.every((s) => Math.abs(s.diff) <= tolerance * Math.max(1, Math.abs(s.recorded)));
-  const notes: string[] = [];
+  const notes: string[] = [...inputs.notes];
   if (rec.mismatch.method !== "none") {
     notes.push(
       `the recorded proposal used ${rec.mismatch.method} correction, which depends on past cycles; an offline re-run agrees only up to it`,

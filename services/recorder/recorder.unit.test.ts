@@ -305,6 +305,52 @@ describe("recompute", () => {
     expect(r.maxAbsDiff).toBe(0);
   });
 
+  it("takes the price set the proposal used when a newer one was recorded just before it, and says so", async () => {
+    // given two price sets, the second recorded 2 ms before a proposal that still used the first
+    const store = newStore();
+    const priceSet = (value: number, atMs: number) =>
+      store.add(
+        ev(
+          "rto.prices.v1",
+          { effectiveFrom: atMs, prices: [{ symbol: "pF", value, unit: "USD/kg" }], source: "test" },
+          atMs,
+        ),
+        "rto.s1.prices",
+      );
+    priceSet(10, T0 - 5000);
+    priceSet(12, T0 - 2);
+    const propose = (cycleid: string, pF: number) =>
+      store.add(
+        ev(
+          "rto.proposal.v1",
+          { ...proposalData(2.4), prices: [{ symbol: "pF", value: pF, unit: "USD/kg" }] },
+          T0,
+          {
+            cycleid,
+          },
+        ),
+        "rto.s1.proposal",
+      );
+    propose("C3", 10);
+    propose("C4", 12);
+    const seen: Record<string, number>[] = [];
+    const optimize = (inp: { prices: Record<string, number> }) => {
+      seen.push(inp.prices);
+      return proposalData(2.4);
+    };
+    // when both cycles are re-run and explained
+    const r3 = await recompute(store, "C3", { optimize });
+    const r4 = await recompute(store, "C4", { optimize });
+    // then each re-run was handed the set its proposal used, and only the first needed a note
+    expect(seen).toEqual([{ pF: 10 }, { pF: 12 }]);
+    expect(r3.notes.join(" ")).toMatch(
+      /prices changed at .* just before the proposal; it used the set of event/,
+    );
+    expect(r4.notes.join(" ")).not.toMatch(/prices changed/);
+    expect(explain(store, "C3").steps.find((x) => x.stage === "prices")?.summary).toContain("pF 10 USD/kg");
+    expect(explain(store, "C4").steps.find((x) => x.stage === "prices")?.summary).toContain("pF 12 USD/kg");
+  });
+
   it("reports a disagreement beyond the tolerance, and refuses a cycle with no proposal", async () => {
     const store = newStore();
     recordCycle(store);

@@ -158,7 +158,7 @@ export class EventStore {
         `SELECT ${cols} FROM events WHERE type = ? AND time_ms BETWEEN ? AND ? ORDER BY time_ms, id LIMIT ?`,
       ),
       latest: this.db.prepare(
-        `SELECT ${cols} FROM events WHERE type = ? AND time_ms <= ? ORDER BY time_ms DESC, id DESC LIMIT 1`,
+        `SELECT ${cols} FROM events WHERE type = ? AND time_ms <= ? ORDER BY time_ms DESC, id DESC LIMIT ?`,
       ),
       count: this.db.prepare("SELECT count(*) AS n FROM events"),
       pruneAge: this.db.prepare("DELETE FROM events WHERE time_ms < ?"),
@@ -241,8 +241,12 @@ export class EventStore {
 
   /** The latest event of `type` with envelope time at or before `atMs` (e.g. the prices in force then). */
   latest(type: string, atMs: number): RecordedEvent | undefined {
-    const r = this.stmts.latest.get(type, atMs) as Row | undefined;
-    return r ? toEvent(r) : undefined;
+    return this.recent(type, atMs, 1)[0];
+  }
+
+  /** The `limit` latest events of `type` with envelope time at or before `atMs`, newest first. */
+  recent(type: string, atMs: number, limit: number): RecordedEvent[] {
+    return (this.stmts.latest.all(type, atMs, limit) as Row[]).map(toEvent);
   }
 
   /** Values of one tag in measurement batches and snapshots whose envelope time lies in [fromMs, toMs]. */
