@@ -213,7 +213,11 @@ describe("plant-sim faults through ingest, steady and reconcile on Mosquitto", (
     await inject([fault], `test: ${fault.kind}`);
     const toMs = fromMs + (fault.durationS ?? PERIOD_S) * 1000 + 5 * PERIOD_S * 1000;
     expect(await untilSim(toMs)).toBe(true);
-    // Ingest and steady trail the plant by a few wall milliseconds.
+    // Ingest and steady trail the plant by a few wall milliseconds, and ingest reports tag health
+    // every 0.2 wall seconds (120 s of plant time): wait for the first report after the window, which
+    // ingest makes after every batch before it (one queue). A fixed 100 ms wait was too short on a
+    // loaded machine.
+    expect(await waitFor(() => (seen.health.at(-1)?.data.timeMs ?? 0) >= toMs, 10_000, 5)).toBe(true);
     await new Promise((r) => setTimeout(r, 100));
     return { fromMs, toMs };
   }
