@@ -228,8 +228,8 @@ async function main() {
     const js = lp.n <= 50 ? solveLpJs(p) : undefined;
     const byName = (costs: number[]) => Object.fromEntries(costs.map((c, j) => [`x${j}`, c]));
     /**
-     * Warm re-solves alternating between `costs` and the original ones. "name": setCosts by name, the
-     * results with their by-name records (the default); "index": a model made with `records: false`,
+     * Warm re-solves alternating between `costs` and the original ones. "name": setCosts by name, only
+     * the objective read (records are built on first read); "index": a model made with `records: false`,
      * setCostVector and the values read through the typed array; "stage": what the optimize stage does
      * each cycle (costs by name, every bound and limit re-stated, and the three records read).
      */
@@ -369,8 +369,9 @@ async function main() {
       "cannot warm-start). 'large' = 5 % of costs by up to ±20 %; 'drift' = every cost by up to ±2 %; 'stage cycle' =\n" +
       "drift plus every bound and limit re-stated, as the optimize stage does each cycle. Each timed re-solve\n" +
       "alternates between the changed and the original costs, so every one has pivots to do.\n" +
-      "by name: setCosts({ name: cost }), solve, results with their by-name records (the default; stage cycle also\n" +
-      "reads them, as the stage does). by index: a model made with records: false, setCostVector(Float64Array),\n" +
+      "by name: setCosts({ name: cost }), solve, the objective read (the default API; its by-name records are built\n" +
+      "on first read, which stage cycle does, as the stage does). by index: a model made with records: false,\n" +
+      "setCostVector(Float64Array),\n" +
       "solve, all values summed through result.columnValues. Both use the kept model's own warm primal simplex\n" +
       "(the default, warm-simplex.ts); 'HiGHS' is by index with warmPrimal: false, HiGHS re-running from its basis.\n" +
       "pivots: by name / by index / HiGHS.",

@@ -59,9 +59,9 @@ export type LpStatus = "optimal" | "infeasible" | "unbounded" | "limit" | "error
  *
  * Every answer comes by index as typed arrays (`columnValues`, `rowDuals`, `columnDuals`, in the order
  * of the problem's `variables` and `constraints`) and by name as records (`values`, `duals`,
- * `reducedCosts`). A kept HiGHS model made with `records: false` leaves the records empty: at 2,000
- * variables, building them took about a quarter of a warm re-solve's time (CPU profile of
- * bench/optimize.ts).
+ * `reducedCosts`). A HiGHS result builds each record on its first read (at 2,000 variables, building
+ * all three took several times the warm re-solve itself: bench/optimize.ts); a kept HiGHS model made
+ * with `records: false` leaves them empty.
  */
 export interface LpResult {
   status: LpStatus;
@@ -278,8 +278,9 @@ function namedRecord(items: readonly { name: string }[], values: ArrayLike<numbe
 }
 
 /**
- * An optimal HiGHS result over the given arrays; the by-name records are built from them unless the
- * caller asked for arrays only (`HighsLpOptions.records: false`).
+ * An optimal HiGHS result over the given arrays. Its by-name records are built from them on first
+ * read (each record separately), or stay empty when the caller asked for arrays only
+ * (`HighsLpOptions.records: false`).
  */
 function optimalHighsResult(
   p: LpProblem,
@@ -289,18 +290,42 @@ function optimalHighsResult(
   columnDuals: Float64Array,
   records: boolean,
 ): LpResult {
-  return {
+  const result = {
     status: "optimal",
     message: "optimal",
     objective,
-    values: records ? namedRecord(p.variables, columnValues) : {},
-    duals: records ? namedRecord(p.constraints, rowDuals) : {},
-    reducedCosts: records ? namedRecord(p.variables, columnDuals) : {},
     columnValues,
     rowDuals,
     columnDuals,
     solver: "highs",
-  };
+  } as LpResult;
+  lazyRecord(result, "values", () => (records ? namedRecord(p.variables, columnValues) : {}));
+  lazyRecord(result, "duals", () => (records ? namedRecord(p.constraints, rowDuals) : {}));
+  lazyRecord(result, "reducedCosts", () => (records ? namedRecord(p.variables, columnDuals) : {}));
+  return result;
+}
+
+/**
+ * Defines `target[key]` as an enumerable property computed by `build` on its first read, then kept as a
+ * plain value (so spreading, comparing and serializing the result see an ordinary record).
+ */
+function lazyRecord(
+  target: LpResult,
+  key: "values" | "duals" | "reducedCosts",
+  build: () => Record<string, number>,
+): void {
+  Object.defineProperty(target, key, {
+    enumerable: true,
+    configurable: true,
+    get() {
+      const value = build();
+      Object.defineProperty(target, key, { value, enumerable: true, writable: true, configurable: true });
+      return value;
+    },
+    set(value: Record<string, number>) {
+      Object.defineProperty(target, key, { value, enumerable: true, writable: true, configurable: true });
+    },
+  });
 }
 
 function readHighs(

@@ -287,6 +287,26 @@ describe("indexed HiGHS API", () => {
     }
   });
 
+  test("a HiGHS result builds each by-name record on its first read, then keeps it as a plain value", () => {
+    // given a kept model's result, nothing read yet
+    const lp = createHighsLp(highs, blend);
+    try {
+      const r = lp.solve();
+      const pending = (key: string) => typeof Object.getOwnPropertyDescriptor(r, key)?.get === "function";
+      expect([pending("values"), pending("duals"), pending("reducedCosts")]).toEqual([true, true, true]);
+      // when one record is read
+      const values = r.values;
+      // then that one is built (and the same object on the next read); the others still wait
+      expect(values).toEqual(recordsOfArrays(blend, r).values);
+      expect(r.values).toBe(values);
+      expect([pending("values"), pending("duals"), pending("reducedCosts")]).toEqual([false, true, true]);
+      // and a copy of the whole result carries every record
+      expect({ ...r }.duals).toEqual(recordsOfArrays(blend, r).duals);
+    } finally {
+      lp.dispose();
+    }
+  });
+
   test("a MILP's indexed duals are those of the LP with the integers fixed", () => {
     // given
     const r = solveLpHighs(highs, milp);
