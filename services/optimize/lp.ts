@@ -18,7 +18,7 @@ import highsImport, { type Highs, type Model as HighsModel } from "highs";
 import jsLpImport from "javascript-lp-solver";
 import { Matrix, pseudoInverse } from "ml-matrix";
 import { OptimizeError, type OptimizeErrorCode } from "./errors.js";
-import { type ColumnLp, WarmPrimalSimplex } from "./warm-simplex.js";
+import { type ColumnLp, transposeCompressed, WarmPrimalSimplex } from "./warm-simplex.js";
 
 /** A decision variable. */
 export interface LpVariable {
@@ -391,24 +391,13 @@ export interface HighsLpOptions {
 function columnLpOf(data: ReturnType<typeof toModelData>): ColumnLp {
   const { numCols, numRows } = data;
   const { starts, indices, values } = data.matrix;
-  const colStart = new Int32Array(numCols + 1);
-  for (let k = 0; k < indices.length; k++) colStart[indices[k]! + 1]!++;
-  for (let j = 0; j < numCols; j++) colStart[j + 1]! += colStart[j]!;
-  const next = colStart.slice(0, numCols);
-  const rowIndex = new Int32Array(indices.length);
-  const value = new Float64Array(indices.length);
-  for (let i = 0; i < numRows; i++)
-    for (let k = starts[i]!; k < starts[i + 1]!; k++) {
-      const at = next[indices[k]!]!++;
-      rowIndex[at] = i;
-      value[at] = values[k]!;
-    }
+  const byColumn = transposeCompressed(numCols, starts, indices, values);
   return {
     nCols: numCols,
     nRows: numRows,
-    colStart,
-    rowIndex,
-    value,
+    colStart: byColumn.start,
+    rowIndex: byColumn.index,
+    value: byColumn.value,
     colLower: Float64Array.from(data.colLower),
     colUpper: Float64Array.from(data.colUpper),
     rowLower: Float64Array.from(data.rowLower),

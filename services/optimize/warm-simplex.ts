@@ -86,29 +86,32 @@ function grow<T extends Int32Array | Float64Array>(a: T, length: number): T {
 }
 
 /**
- * Entries listed per pivot k (`start[k]..start[k+1]` of `index`/`value`) regrouped per index: for each
- * index i, the pairs (pivotRow[k], value) of the pivots that list it.
+ * The transpose of a compressed sparse matrix (CSR to CSC or back): entries listed per outer index k
+ * (`start[k]..start[k+1]` of `index`/`value`, k < start.length − 1) regrouped per inner index
+ * i < `innerCount`, each entry carrying `label[k]` (default k) as its new index.
  */
-function transpose(
-  m: number,
+export function transposeCompressed(
+  innerCount: number,
   start: Int32Array,
   index: Int32Array,
   value: Float64Array,
-  pivotRow: Int32Array,
-): { start: Int32Array; target: Int32Array; value: Float64Array } {
-  const out = new Int32Array(m + 1);
-  for (let q = 0; q < index.length; q++) out[index[q]! + 1]!++;
-  for (let i = 0; i < m; i++) out[i + 1]! += out[i]!;
-  const next = out.slice(0, m);
-  const target = new Int32Array(index.length);
-  const values = new Float64Array(index.length);
-  for (let k = 0; k < m; k++)
+  label?: Int32Array,
+): { start: Int32Array; index: Int32Array; value: Float64Array } {
+  const outerCount = start.length - 1;
+  const nnz = start[outerCount]!;
+  const out = new Int32Array(innerCount + 1);
+  for (let q = 0; q < nnz; q++) out[index[q]! + 1]!++;
+  for (let i = 0; i < innerCount; i++) out[i + 1]! += out[i]!;
+  const next = out.slice(0, innerCount);
+  const outIndex = new Int32Array(nnz);
+  const outValue = new Float64Array(nnz);
+  for (let k = 0; k < outerCount; k++)
     for (let q = start[k]!; q < start[k + 1]!; q++) {
       const at = next[index[q]!]!++;
-      target[at] = pivotRow[k]!;
-      values[at] = value[q]!;
+      outIndex[at] = label ? label[k]! : k;
+      outValue[at] = value[q]!;
     }
-  return { start: out, target, value: values };
+  return { start: out, index: outIndex, value: outValue };
 }
 
 /**
@@ -180,18 +183,8 @@ class BasisFactor {
   factor(bStart: Int32Array, bRow: Int32Array, bVal: Float64Array, maxBump: number): void {
     const m = this.m;
     // Row-wise copy of B, for row singletons and the U rows.
-    const rStart = new Int32Array(m + 1);
-    for (let k = 0; k < bStart[m]!; k++) rStart[bRow[k]! + 1]!++;
-    for (let i = 0; i < m; i++) rStart[i + 1]! += rStart[i]!;
-    const fill = rStart.slice(0, m);
-    const rPos = new Int32Array(bStart[m]!);
-    const rVal = new Float64Array(bStart[m]!);
-    for (let p = 0; p < m; p++)
-      for (let k = bStart[p]!; k < bStart[p + 1]!; k++) {
-        const at = fill[bRow[k]!]!++;
-        rPos[at] = p;
-        rVal[at] = bVal[k]!;
-      }
+    const byRow = transposeCompressed(m, bStart, bRow, bVal);
+    const { start: rStart, index: rPos, value: rVal } = byRow;
     const colCount = new Int32Array(m);
     const rowCount = new Int32Array(m);
     for (let p = 0; p < m; p++) colCount[p] = bStart[p + 1]! - bStart[p]!;
@@ -322,13 +315,13 @@ class BasisFactor {
     this.lVal = Float64Array.from(lVal);
     // Transposed copies, so that both solves scatter and skip zeros (sparse right-hand sides stay cheap):
     // U by position (FTRAN's back substitution), L by row (BTRAN's last pass); targets are pivot rows.
-    const uc = transpose(m, this.uStart, this.uPos, this.uVal, this.pivRow);
+    const uc = transposeCompressed(m, this.uStart, this.uPos, this.uVal, this.pivRow);
     this.ucStart = uc.start;
-    this.ucTarget = uc.target;
+    this.ucTarget = uc.index;
     this.ucVal = uc.value;
-    const lr = transpose(m, this.lStart, this.lRow, this.lVal, this.pivRow);
+    const lr = transposeCompressed(m, this.lStart, this.lRow, this.lVal, this.pivRow);
     this.lrStart = lr.start;
-    this.lrTarget = lr.target;
+    this.lrTarget = lr.index;
     this.lrVal = lr.value;
     // The pivots that have L entries at all (in pivot order): a nearly triangular basis has few, and
     // both L passes then visit those instead of all m pivots.
@@ -543,19 +536,8 @@ export class WarmPrimalSimplex {
     this.mark = new Uint8Array(this.n);
     this.candidates = new Int32Array(total);
     this.inCandidates = new Uint8Array(total);
-    const start = new Int32Array(this.m + 1);
-    for (let k = 0; k < lp.rowIndex.length; k++) start[lp.rowIndex[k]! + 1]!++;
-    for (let i = 0; i < this.m; i++) start[i + 1]! += start[i]!;
-    const next = start.slice(0, this.m);
-    const col = new Int32Array(lp.rowIndex.length);
-    const value = new Float64Array(lp.rowIndex.length);
-    for (let j = 0; j < this.n; j++)
-      for (let k = lp.colStart[j]!; k < lp.colStart[j + 1]!; k++) {
-        const at = next[lp.rowIndex[k]!]!++;
-        col[at] = j;
-        value[at] = lp.value[k]!;
-      }
-    this.rows = { start, col, value };
+    const byRow = transposeCompressed(this.m, lp.colStart, lp.rowIndex, lp.value);
+    this.rows = { start: byRow.start, col: byRow.index, value: byRow.value };
     this.x = new Float64Array(total);
     this.y = new Float64Array(this.m);
     this.d = new Float64Array(total);
