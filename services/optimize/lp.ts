@@ -487,12 +487,16 @@ function createChecked(
     costChanged = colChanged = rowChanged = false;
   };
   // The warm primal simplex (see HighsLpOptions.warmPrimal): created at its first use, loaded with
-  // HiGHS's basis after each optimal HiGHS run, and "current" while its basis is newer than HiGHS's.
-  // Cost changes it has solved stay pending in `costMask`, so a later HiGHS run still receives them.
-  const warmAllowed = (options.warmPrimal ?? true) && data !== undefined && !isMilp(p);
+  // HiGHS's last optimal basis at the first cost-only re-solve after a HiGHS run, and "current" while
+  // its basis is newer than HiGHS's. Cost changes it has solved stay pending in `costMask`, so a later
+  // HiGHS run still receives them. A model whose bases it refused three times in a row (a bump too
+  // large to factor, say) stops asking: each refusal had cost a factorization attempt on top of the
+  // HiGHS run that answered instead.
+  let warmAllowed = (options.warmPrimal ?? true) && data !== undefined && !isMilp(p);
   let warm: { simplex: WarmPrimalSimplex; lp: ColumnLp; cost: Float64Array } | undefined;
   let highsOptimal = false;
   let warmCurrent = false;
+  let refusals = 0;
   const sign = p.sense === "max" ? -1 : 1;
   const solveWarm = (m: HighsModel): LpResult | undefined => {
     if (!warmAllowed || colChanged || rowChanged || !(warmCurrent || highsOptimal)) return undefined;
@@ -508,7 +512,11 @@ function createChecked(
       lp.rowLower.set(rowLower);
       lp.rowUpper.set(rowUpper);
       const basis = m.getBasis();
-      if (simplex.load(basis.colStatus, basis.rowStatus) !== undefined) return undefined;
+      if (simplex.load(basis.colStatus, basis.rowStatus) !== undefined) {
+        warmAllowed = ++refusals < 3;
+        return undefined;
+      }
+      refusals = 0;
     }
     for (let j = 0; j < nCols; j++) cost[j] = sign * costs[j]!;
     const outcome = simplex.solve(cost);

@@ -1,6 +1,7 @@
 /**
- * The warm primal simplex against HiGHS (Huangfu & Hall 2018, "Parallelizing the dual revised simplex
- * method", Math. Prog. Comp. 10; the `highs` package on npm) as the reference solver: every warm answer
+ * The warm primal simplex against a reference library. Source: HiGHS (Huangfu & Hall 2018,
+ * "Parallelizing the dual revised simplex method", Math. Prog. Comp. 10; the `highs` package on npm),
+ * its optima reproduced in each test for the same problem solved from scratch. Every warm answer
  * must have HiGHS's optimal objective for the same costs, solved from scratch, and satisfy the LP
  * optimality conditions (primal feasibility, c − Aᵀy = d, d's sign at each bound, zero for basic
  * variables) on its own. The random LPs are seeded and built around a known feasible point, so every
