@@ -24,7 +24,12 @@
  *   basic structurals, a bump of 17);
  * - basis changes append product-form eta columns; the basis is refactorized every
  *   {@link WarmSimplexOptions.refactorEvery} pivots;
- * - Dantzig pricing on recomputed reduced costs, bounded-variable ratio test with bound flips.
+ * - duals computed once per solve (and after each refactorization), then updated by each pivot's row;
+ *   Dantzig pricing over the variables whose reduced costs were seen to violate optimality; a
+ *   bounded-variable ratio test with bound flips.
+ *
+ * Internal failures (a singular basis) are thrown as `SingularBasis` inside the factorization and come
+ * out of the public methods only as a declined outcome with its reason; nothing here throws to a caller.
  */
 
 /** An LP in HiGHS's row form, columns stored compressed (CSC). Bounds may be ±Infinity. */
