@@ -1,6 +1,6 @@
 /**
  * Optimizer benchmark: our SQP against SciPy SLSQP on the Williams–Otto reactor, and our LP path
- * (HiGHS cold; warm re-solves by our warm primal simplex, by name and by index, and by HiGHS itself)
+ * (HiGHS cold; warm re-solves by our warm simplex, by name and by index, and by HiGHS itself)
  * against SciPy `linprog(method="highs")` on random sparse LPs, with HiGHS's own cost of a run that has
  * nothing to do. Both sides run in the same process tree
  * in the same run; Python times itself with time.perf_counter.
@@ -235,7 +235,7 @@ async function main() {
      */
     const warm = (costs: number[], mode: "name" | "index" | "highs" | "stage") => {
       const byIndex = mode === "index" || mode === "highs";
-      const model = createHighsLp(highs, p, { records: !byIndex, warmPrimal: mode !== "highs" });
+      const model = createHighsLp(highs, p, { records: !byIndex, warmSimplex: mode !== "highs" });
       model.solve();
       const named = [byName(costs), byName(lp.cost)];
       const indexed = [Float64Array.from(costs), Float64Array.from(lp.cost)];
@@ -372,8 +372,8 @@ async function main() {
       "by name: setCosts({ name: cost }), solve, the objective read (the default API; its by-name records are built\n" +
       "on first read, which stage cycle does, as the stage does). by index: a model made with records: false,\n" +
       "setCostVector(Float64Array),\n" +
-      "solve, all values summed through result.columnValues. Both use the kept model's own warm primal simplex\n" +
-      "(the default, warm-simplex.ts); 'HiGHS' is by index with warmPrimal: false, HiGHS re-running from its basis.\n" +
+      "solve, all values summed through result.columnValues. Both use the kept model's own warm simplex\n" +
+      "(the default, warm-simplex.ts); 'HiGHS' is by index with warmSimplex: false, HiGHS re-running from its basis.\n" +
       "pivots: by name / by index / HiGHS.",
   );
   console.log(
@@ -402,7 +402,7 @@ async function main() {
   });
   console.log(
     "\nHiGHS floor per run: run() on a solved raw HiGHS model with nothing changed (no JavaScript of ours),\n" +
-      "and our indexed solve() with nothing changed (the warm primal simplex's pricing pass + reading the result);\n" +
+      "and our indexed solve() with nothing changed (the warm simplex's pricing pass + reading the result);\n" +
       "ratios against SciPy's cold solve of the same LP. No re-solve through HiGHS can get below its floor.",
   );
   console.log(

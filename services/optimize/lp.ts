@@ -18,7 +18,7 @@ import highsImport, { type Highs, type Model as HighsModel } from "highs";
 import jsLpImport from "javascript-lp-solver";
 import { Matrix, pseudoInverse } from "ml-matrix";
 import { OptimizeError, type OptimizeErrorCode } from "./errors.js";
-import { type ColumnLp, transposeCompressed, WarmPrimalSimplex } from "./warm-simplex.js";
+import { type ColumnLp, transposeCompressed, WarmSimplex } from "./warm-simplex.js";
 
 /** A decision variable. */
 export interface LpVariable {
@@ -90,10 +90,10 @@ export interface LpResult {
   /** Simplex iterations of this solve (HiGHS only; a warm re-solve shows its few pivots here). */
   iterations?: number;
   /**
-   * True when a kept model's answer came from its own warm primal simplex (services/optimize/
-   * warm-simplex.ts) rather than from a HiGHS run; see {@link HighsLpOptions.warmPrimal}.
+   * True when a kept model's answer came from its own warm simplex (services/optimize/
+   * warm-simplex.ts) rather than from a HiGHS run; see {@link HighsLpOptions.warmSimplex}.
    */
-  warmPrimal?: boolean;
+  warmSimplex?: boolean;
 }
 
 const isMilp = (p: LpProblem) => p.variables.some((v) => v.integer === true);
@@ -377,17 +377,18 @@ export interface HighsLpOptions {
    */
   records?: boolean;
   /**
-   * Re-solve after a change of costs only (bounds and limits as at the last optimal solve) with our
-   * own warm primal simplex on HiGHS's last optimal basis, instead of a HiGHS run. Default true for an
-   * LP, ignored for a MILP. The answer is the same optimum (checked against HiGHS in
-   * warm-simplex.unit.test.ts); the point is time: a HiGHS run costs 0.5–0.7 ms at 2,000 variables
+   * Re-solve after changes of costs, bounds or limits with our own warm simplex on HiGHS's last optimal
+   * basis (a primal phase for the costs, then a dual phase for the bounds), instead of a HiGHS run.
+   * Default true for an LP, ignored for a MILP. The answer is the same optimum (checked against HiGHS
+   * in warm-simplex.unit.test.ts); the point is time: a HiGHS run costs 0.6–0.8 ms at 2,000 variables
    * before its first pivot, the whole budget of a warm cycle. Whenever the warm simplex declines
-   * (unbounded ray, singular or large basis, more than 100 pivots), HiGHS solves as before.
+   * (unbounded ray, infeasible, singular or large basis, a nonbasic bound removed, more than 100
+   * pivots), HiGHS solves as before.
    */
-  warmPrimal?: boolean;
+  warmSimplex?: boolean;
 }
 
-/** `data`'s matrix by columns, for the warm primal simplex; the bounds are fresh arrays. */
+/** `data`'s matrix by columns, for the warm simplex; the bounds are fresh arrays. */
 function columnLpOf(data: ReturnType<typeof toModelData>): ColumnLp {
   const { numCols, numRows } = data;
   const { starts, indices, values } = data.matrix;
@@ -486,31 +487,39 @@ function createChecked(
     if (rowChanged) rowMask.fill(0);
     costChanged = colChanged = rowChanged = false;
   };
-  // The warm primal simplex (see HighsLpOptions.warmPrimal): created at its first use, loaded with
+  // The warm simplex (see HighsLpOptions.warmSimplex): created at its first use, loaded with
   // HiGHS's last optimal basis at the first cost-only re-solve after a HiGHS run, and "current" while
   // its basis is newer than HiGHS's. Cost changes it has solved stay pending in `costMask`, so a later
   // HiGHS run still receives them. A model whose bases it refused three times in a row (a bump too
   // large to factor, say) stops asking: each refusal had cost a factorization attempt on top of the
   // HiGHS run that answered instead.
-  let warmAllowed = (options.warmPrimal ?? true) && data !== undefined && !isMilp(p);
-  let warm: { simplex: WarmPrimalSimplex; lp: ColumnLp; cost: Float64Array } | undefined;
+  let warmAllowed = (options.warmSimplex ?? true) && data !== undefined && !isMilp(p);
+  let warm: { simplex: WarmSimplex; lp: ColumnLp; cost: Float64Array } | undefined;
   let highsOptimal = false;
   let warmCurrent = false;
   let refusals = 0;
   const sign = p.sense === "max" ? -1 : 1;
+  // The bounds and limits of HiGHS's last run (its basis is optimal for those), kept for a warm load.
+  const highsBounds = {
+    colLower: Float64Array.from(colLower),
+    colUpper: Float64Array.from(colUpper),
+    rowLower: Float64Array.from(rowLower),
+    rowUpper: Float64Array.from(rowUpper),
+  };
+  const current = { colLower, colUpper, rowLower, rowUpper };
   const solveWarm = (m: HighsModel): LpResult | undefined => {
-    if (!warmAllowed || colChanged || rowChanged || !(warmCurrent || highsOptimal)) return undefined;
+    if (!warmAllowed || !(warmCurrent || highsOptimal)) return undefined;
     if (!warm) {
       const lp = columnLpOf(data!);
-      warm = { simplex: new WarmPrimalSimplex(lp), lp, cost: new Float64Array(nCols) };
+      warm = { simplex: new WarmSimplex(lp), lp, cost: new Float64Array(nCols) };
     }
     const { simplex, lp, cost } = warm;
     if (!warmCurrent) {
-      // The bounds as HiGHS holds them now (load reads them afresh), and HiGHS's last basis.
-      lp.colLower.set(colLower);
-      lp.colUpper.set(colUpper);
-      lp.rowLower.set(rowLower);
-      lp.rowUpper.set(rowUpper);
+      // HiGHS's last basis, with the bounds it was optimal for (load reads them from `lp`).
+      lp.colLower.set(highsBounds.colLower);
+      lp.colUpper.set(highsBounds.colUpper);
+      lp.rowLower.set(highsBounds.rowLower);
+      lp.rowUpper.set(highsBounds.rowUpper);
       const basis = m.getBasis();
       if (simplex.load(basis.colStatus, basis.rowStatus) !== undefined) {
         warmAllowed = ++refusals < 3;
@@ -519,7 +528,9 @@ function createChecked(
       refusals = 0;
     }
     for (let j = 0; j < nCols; j++) cost[j] = sign * costs[j]!;
-    const outcome = simplex.solve(cost);
+    // Bounds or limits changed since HiGHS's run: the warm simplex moves to them (its dual phase);
+    // they stay pending for HiGHS as well.
+    const outcome = simplex.solve(cost, colChanged || rowChanged ? current : undefined);
     warmCurrent = outcome.status === "optimal";
     if (!warmCurrent) return undefined;
     const x = simplex.x.slice(0, nCols);
@@ -531,7 +542,7 @@ function createChecked(
     for (let j = 0; j < nCols; j++) objective += costs[j]! * x[j]!;
     const r = optimalHighsResult(p, objective, x, rowDuals, columnDuals, records);
     r.iterations = outcome.pivots;
-    r.warmPrimal = true;
+    r.warmSimplex = true;
     return r;
   };
   return {
@@ -546,6 +557,10 @@ function createChecked(
         model.run();
         solved = true;
         warmCurrent = false;
+        highsBounds.colLower.set(colLower);
+        highsBounds.colUpper.set(colUpper);
+        highsBounds.rowLower.set(rowLower);
+        highsBounds.rowUpper.set(rowUpper);
         let r = readHighs(highs, model, p, costs, records);
         highsOptimal = r.status === "optimal";
         const iterations = Number(model.info.get("simplex_iteration_count"));

@@ -131,10 +131,10 @@ describe("LP and MILP", () => {
 
   test.each([
     ["HiGHS", false],
-    ["the warm primal simplex", true],
-  ])("a kept model re-solved after a cost change by %s equals a fresh solve", (_, warmPrimal) => {
+    ["the warm simplex", true],
+  ])("a kept model re-solved after a cost change by %s equals a fresh solve", (_, warmSimplex) => {
     // given
-    const lp = createHighsLp(highs, blend, { warmPrimal });
+    const lp = createHighsLp(highs, blend, { warmSimplex });
     try {
       lp.solve();
       // when
@@ -145,7 +145,7 @@ describe("LP and MILP", () => {
         ...blend,
         variables: blend.variables.map((v) => (v.name === "crudeB" ? { ...v, cost: 0.47 } : v)),
       });
-      expect(warm.warmPrimal === true).toBe(warmPrimal);
+      expect(warm.warmSimplex === true).toBe(warmSimplex);
       expect(warm.objective).toBeCloseTo(fresh.objective, 9);
       for (const v of blend.variables) expect(warm.values[v.name]).toBeCloseTo(fresh.values[v.name]!, 9);
       for (const c of blend.constraints) expect(warm.duals[c.name]).toBeCloseTo(fresh.duals[c.name]!, 9);
@@ -390,8 +390,8 @@ describe("indexed HiGHS API", () => {
   test("setCostVector sends only the changed entries, and nothing when no entry changed", () => {
     // given a kept model whose cost changes are observed
     const calls: number[][] = [];
-    // (HiGHS's own path: the warm primal simplex would leave the cost changes pending, not sent)
-    const lp = createHighsLp(observedHighs(calls), mixed, { warmPrimal: false });
+    // (HiGHS's own path: the warm simplex would leave the cost changes pending, not sent)
+    const lp = createHighsLp(observedHighs(calls), mixed, { warmSimplex: false });
     try {
       const cold = lp.solve();
       // when the same costs are re-stated

@@ -1,13 +1,16 @@
 /**
- * Warm primal simplex for a kept LP whose costs changed since its last optimal basis.
+ * Warm simplex for a kept LP whose costs, bounds or limits changed since its last optimal basis.
  *
- * Why it exists: a cycle's re-solve after a price change keeps the feasible set, so the last optimal
- * basis is still primal feasible and a handful of primal pivots restore optimality. HiGHS does those
- * pivots quickly, but every `run()` of a kept HiGHS model costs a fixed 0.5–0.7 ms at 2,000 variables
- * before its first pivot (measured in bench/optimize.ts, "HiGHS floor"), which is the whole budget of a
- * warm re-solve there. This module does the pivots on a factorization it keeps between cycles, and
- * declines (the caller then runs HiGHS) whenever it meets anything outside the easy case: a basis it
- * cannot factor, a primal infeasibility, an unbounded ray or too many pivots.
+ * Why it exists: an RTO cycle re-solves the same LP with new prices and with the decisions' boxes
+ * moved by the move limits. The last optimal basis is a few pivots from the new optimum: after a cost
+ * change it is still primal feasible (primal pivots restore optimality), after a bound change still
+ * dual feasible (dual pivots restore feasibility). HiGHS does those pivots quickly, but every `run()`
+ * of a kept HiGHS model costs a fixed 0.6–0.8 ms at 2,000 variables before its first pivot (measured in
+ * bench/optimize.ts, "HiGHS floor"), the whole budget of a warm re-solve there. This module does the
+ * pivots on a factorization it keeps between cycles: the primal phase for the new costs on the bounds
+ * in force, then the new bounds and a dual phase. It declines (the caller then runs HiGHS) whenever it
+ * meets anything outside the easy case: a basis it cannot factor, an unbounded ray, an infeasible LP, a
+ * nonbasic variable whose bound was removed, or too many pivots.
  *
  * The LP is taken in HiGHS's row form: minimize cᵀx subject to r = A·x, colLower ≤ x ≤ colUpper and
  * rowLower ≤ r ≤ rowUpper. Variables 0..n−1 are the columns x, variables n..n+m−1 the row activities r;
@@ -15,9 +18,10 @@
  * Duals follow HiGHS's sign convention: c − Aᵀy = d for the columns, and the reduced cost of row
  * activity i is y_i.
  *
- * Method (Chvátal 1983, "Linear Programming", ch. 8 "the revised simplex method" and ch. 10
- * "sensitivity analysis": a cost change keeps primal feasibility; Harris 1973, "Pivot selection methods
- * of the Devex LP code", Math. Programming 5, for the two-pass ratio test):
+ * Method (Chvátal 1983, "Linear Programming", ch. 8 "the revised simplex method" and ch. 10 "the dual
+ * simplex method" and "sensitivity analysis": a cost change keeps primal feasibility, a bound change
+ * dual feasibility; Harris 1973, "Pivot selection methods of the Devex LP code", Math. Programming 5,
+ * for the primal two-pass ratio test):
  * - the basis matrix is factorized as a sequence of pivots: first the column and row singletons found
  *   by triangularization (no fill, no arithmetic), then a dense LU with partial pivoting of what is
  *   left (the "bump"); a warm cycle's bases are nearly triangular (bench LPs at 2,000 variables: 272
@@ -26,7 +30,9 @@
  *   {@link WarmSimplexOptions.refactorEvery} pivots;
  * - duals computed once per solve (and after each refactorization), then updated by each pivot's row;
  *   Dantzig pricing over the variables whose reduced costs were seen to violate optimality; a
- *   bounded-variable ratio test with bound flips.
+ *   bounded-variable ratio test with bound flips;
+ * - the dual phase takes the most violating basic variable out and the textbook dual ratio test's
+ *   variable in, on the same pivot-row machinery.
  *
  * Internal failures (a singular basis) are thrown as `SingularBasis` inside the factorization and come
  * out of the public methods only as a declined outcome with its reason; nothing here throws to a caller.
@@ -46,7 +52,7 @@ export interface ColumnLp {
   rowUpper: Float64Array;
 }
 
-/** Options of {@link WarmPrimalSimplex}. */
+/** Options of {@link WarmSimplex}. */
 export interface WarmSimplexOptions {
   /** Pivots allowed per solve before declining; default 100. */
   maxPivots?: number;
@@ -60,9 +66,26 @@ export interface WarmSimplexOptions {
   primalTolerance?: number;
 }
 
-/** Outcome of {@link WarmPrimalSimplex.solve}. */
+/** New bounds for {@link WarmSimplex.solve}, of the same lengths as the LP's (±Infinity allowed). */
+export interface BoundsUpdate {
+  colLower: ArrayLike<number>;
+  colUpper: ArrayLike<number>;
+  rowLower: ArrayLike<number>;
+  rowUpper: ArrayLike<number>;
+}
+
+/** Outcome of {@link WarmSimplex.solve}. */
 export type WarmOutcome =
-  | { status: "optimal"; pivots: number }
+  | {
+      status: "optimal";
+      /** Pivots in all (bound flips included). */
+      pivots: number;
+      /**
+       * Pivots of the dual phase, and primal pivots made after it. A dual phase keeps the basis dual
+       * feasible, so after a change of bounds only the second count stays 0 but for rounding.
+       */
+      phases: { primal: number; dual: number; primalAfterDual: number };
+    }
   | { status: "declined"; pivots: number; reason: string };
 
 /** Basis status codes, HiGHS's (`highs.constants.basisStatus`): lower, basic, upper, zero, nonbasic. */
@@ -76,7 +99,7 @@ const PIVOT_TOLERANCE = 1e-9;
 /** Smallest pivot of the bump's LU, relative to the largest entry of the bump. */
 const SINGULAR_TOLERANCE = 1e-11;
 
-/** {@link WarmPrimalSimplex.ratioTest} results that are not a position. */
+/** {@link WarmSimplex.ratioTest} results that are not a position. */
 const FLIP = -1;
 const UNBOUNDED = -2;
 
@@ -470,11 +493,12 @@ class BasisFactor {
 }
 
 /**
- * A primal simplex that starts from a given basis (normally HiGHS's last optimal one) and re-optimizes
- * after cost changes. Load a basis with {@link load}, then call {@link solve} with each cycle's costs;
- * the basis, values and factorization carry over between solves. Bounds are read at each load.
+ * A simplex that starts from a given basis (normally HiGHS's last optimal one) and re-optimizes after
+ * changes of costs and bounds. Load a basis with {@link load} (which reads the LP's bounds), then call
+ * {@link solve} with each cycle's costs and, when they moved, its bounds; the basis, values and
+ * factorization carry over between solves.
  */
-export class WarmPrimalSimplex {
+export class WarmSimplex {
   private readonly lp: ColumnLp;
   private readonly n: number;
   private readonly m: number;
@@ -624,7 +648,13 @@ export class WarmPrimalSimplex {
       if (err instanceof SingularBasis) return err.message;
       throw err;
     }
-    // Basic values from the nonbasic ones: B·x_B = −Σ_N a_j·x_j (row activity columns are −e_i).
+    this.computeBasicValues();
+    return undefined;
+  }
+
+  /** The basic values from the nonbasic ones: B·x_B = −Σ_N a_j·x_j (row activity columns are −e_i). */
+  private computeBasicValues(): void {
+    const { n, m, lp, basicVar, x } = this;
     const rhs = this.rowWork.fill(0);
     for (let j = 0; j < n + m; j++) {
       if (this.status[j] === BASIC || x[j] === 0) continue;
@@ -635,12 +665,124 @@ export class WarmPrimalSimplex {
     }
     this.factor.ftran(rhs, this.posWork);
     for (let p = 0; p < m; p++) x[basicVar[p]!] = this.posWork[p]!;
+  }
+
+  /**
+   * Moves to new bounds with the basis kept: each nonbasic variable goes to its new bound on the same
+   * side, and the basic values follow. The reduced costs do not change, so an optimal basis stays
+   * dual feasible (Chvátal 1983, ch. 10): only the basic values may now be out of bounds, which the dual
+   * phase of {@link solve} repairs. Returns a reason when a nonbasic variable's side has no bound any
+   * more, or a free nonbasic variable gained one.
+   */
+  private applyBounds(bounds: BoundsUpdate): string | undefined {
+    const { n, m, status, lower, upper, x } = this;
+    lower.set(bounds.colLower);
+    lower.set(bounds.rowLower, n);
+    upper.set(bounds.colUpper);
+    upper.set(bounds.rowUpper, n);
+    for (let j = 0; j < n + m; j++) {
+      const st = status[j];
+      if (st === BASIC) continue;
+      const v = st === LOWER ? lower[j]! : st === UPPER ? upper[j]! : 0;
+      if (!Number.isFinite(v) || (st === ZERO && (lower[j]! > -Infinity || upper[j]! < Infinity)))
+        return `nonbasic variable ${j} lost the bound it sat at`;
+      x[j] = v;
+    }
+    this.computeBasicValues();
     return undefined;
   }
 
   /**
+   * The dual simplex phase from a dual feasible basis: while a basic variable is out of its bounds by
+   * more than the primal tolerance, the most violating one leaves at the bound it violates, and the
+   * entering variable is the one whose reduced cost reaches zero first along the pivot row (the dual
+   * ratio test; Chvátal 1983, ch. 10). Returns the pivot count reached (starting from `pivots`), or a
+   * declined outcome.
+   */
+  private dualPhase(cost: ArrayLike<number>, pivots: number): number | WarmOutcome {
+    const { m, status, basicVar, x, d, lower, upper, alpha, rowAlpha, touched } = this;
+    const { maxPivots, refactorEvery, primalTolerance } = this.options;
+    const rho = this.rhoWork;
+    for (; ; pivots++) {
+      let r = -1;
+      let worst = primalTolerance;
+      for (let p = 0; p < m; p++) {
+        const v = basicVar[p]!;
+        const violation = Math.max(lower[v]! - x[v]!, x[v]! - upper[v]!);
+        if (violation > worst) {
+          worst = violation;
+          r = p;
+        }
+      }
+      if (r < 0) return pivots;
+      if (pivots >= maxPivots) return this.decline(pivots, `no optimum after ${maxPivots} pivots`);
+      const out = basicVar[r]!;
+      const below = x[out]! < lower[out]!;
+      // x_r changes by −α_rj·Δx_j: a variable at its lower bound can rise, one at its upper bound fall.
+      const count = this.pivotRow(r);
+      let q = -1;
+      let best = Number.POSITIVE_INFINITY;
+      let bestAbs = 0;
+      const consider = (j: number, a: number) => {
+        const st = status[j];
+        if (st === BASIC || lower[j] === upper[j] || Math.abs(a) <= PIVOT_TOLERANCE) return;
+        const towards = below ? -a : a; // > 0: raising x_j moves x_r the right way
+        if ((st === LOWER && towards <= 0) || (st === UPPER && towards >= 0)) return;
+        const ratio = Math.abs(d[j]!) / Math.abs(a);
+        if (ratio < best || (ratio === best && Math.abs(a) > bestAbs)) {
+          best = ratio;
+          bestAbs = Math.abs(a);
+          q = j;
+        }
+      };
+      for (let k = 0; k < count; k++) consider(touched[k]!, rowAlpha[touched[k]!]!);
+      for (let i = 0; i < m; i++) if (rho[i] !== 0) consider(this.n + i, -rho[i]!);
+      if (q < 0) {
+        for (let k = 0; k < count; k++) {
+          rowAlpha[touched[k]!] = 0;
+          this.mark[touched[k]!] = 0;
+        }
+        return this.decline(pivots, "primal infeasible: no entering variable in the dual ratio test");
+      }
+      this.enteringColumn(q);
+      const alphaRq = alpha[r]!;
+      if (Math.abs(alphaRq) <= PIVOT_TOLERANCE) {
+        for (let k = 0; k < count; k++) {
+          rowAlpha[touched[k]!] = 0;
+          this.mark[touched[k]!] = 0;
+        }
+        return this.decline(pivots, "pivot too small in the dual phase");
+      }
+      // Primal step: x_out reaches the bound it violated.
+      const target = below ? lower[out]! : upper[out]!;
+      const step = (x[out]! - target) / alphaRq;
+      x[q]! += step;
+      const nz = this.alphaNonzeros;
+      for (let k = 0; k < this.alphaCount; k++) x[basicVar[nz[k]!]!]! -= step * alpha[nz[k]!]!;
+      this.applyPivotRow(count, q, out, alphaRq);
+      status[out] = below ? LOWER : UPPER;
+      x[out] = target;
+      this.consider(out);
+      status[q] = BASIC;
+      basicVar[r] = q;
+      this.factor.update(r, alpha, nz, this.alphaCount);
+      if (this.factor.etaCount >= refactorEvery) {
+        const reason = this.refactor();
+        if (reason) return this.decline(pivots + 1, reason);
+        this.computeDuals(cost);
+      }
+    }
+  }
+
+  private decline(pivots: number, reason: string): WarmOutcome {
+    this.loaded = false;
+    return { status: "declined", pivots, reason };
+  }
+
+  /**
    * Re-optimizes from the loaded basis for the costs `cost` (minimization, length nCols; the row
-   * activities cost nothing). On "optimal", `x`, `y` and `d` hold the answer and the basis is kept for
+   * activities cost nothing) and, when `bounds` are given, for new bounds too: first the primal phase
+   * for the new costs on the bounds in force, then the new bounds and a dual phase. On "optimal", `x`, `y` and `d` hold the answer and the basis is kept for
    * the next call; on "declined" the object must be re-loaded before it is used again.
    *
    * The duals are computed afresh at the start (and after each refactorization) and then updated by
@@ -648,18 +790,38 @@ export class WarmPrimalSimplex {
    * with ρ = B⁻ᵀ·e_r and δ = d_q / α_r (Chvátal 1983, ch. 8). Recomputing every reduced cost at every
    * pivot cost twice as much at 2,000 variables (profiled).
    */
-  solve(cost: ArrayLike<number>): WarmOutcome {
+  solve(cost: ArrayLike<number>, bounds?: BoundsUpdate): WarmOutcome {
     if (!this.loaded) return { status: "declined", pivots: 0, reason: "no basis loaded" };
     const { status, basicVar, x, d, lower, upper, alpha } = this;
     const { maxPivots, refactorEvery } = this.options;
-    const decline = (pivots: number, reason: string): WarmOutcome => {
-      this.loaded = false;
-      return { status: "declined", pivots, reason };
-    };
+    const decline = (pivots: number, reason: string) => this.decline(pivots, reason);
     this.computeDuals(cost);
+    let pending = bounds;
+    let primal = -1;
+    let dualPivots = 0;
     for (let pivots = 0; ; pivots++) {
-      const q = this.choose();
-      if (q < 0) return { status: "optimal", pivots };
+      let q = this.choose();
+      if (q < 0 && pending) {
+        // Optimal for the new costs on the old bounds: now the new bounds, and the dual phase. Should
+        // the dual phase end with a reduced cost past the tolerance (rounding), the primal phase goes on.
+        const reason = this.applyBounds(pending);
+        pending = undefined;
+        if (reason) return decline(pivots, reason);
+        primal = pivots;
+        const dual = this.dualPhase(cost, pivots);
+        if (typeof dual !== "number") return dual;
+        dualPivots = dual - pivots;
+        pivots = dual;
+        q = this.choose();
+      }
+      if (q < 0) {
+        const before = primal < 0 ? pivots : primal;
+        return {
+          status: "optimal",
+          pivots,
+          phases: { primal: before, dual: dualPivots, primalAfterDual: pivots - before - dualPivots },
+        };
+      }
       if (pivots >= maxPivots) return decline(pivots, `no optimum after ${maxPivots} pivots`);
       const dir = d[q]! < 0 ? 1 : -1;
       const leave = this.ratioTest(q, dir);
@@ -677,7 +839,7 @@ export class WarmPrimalSimplex {
       }
       const out = basicVar[leave]!;
       const down = -dir * alpha[leave]! < 0;
-      this.updateDuals(leave, q, out);
+      this.applyPivotRow(this.pivotRow(leave), q, out, alpha[leave]!);
       status[out] = down ? LOWER : UPPER;
       x[out] = down ? lower[out]! : upper[out]!;
       this.consider(out);
@@ -784,25 +946,11 @@ export class WarmPrimalSimplex {
    * shorter, or UNBOUNDED; the step is left in `lastStep`.
    */
   private ratioTest(q: number, dir: number): number {
-    const { n, m, basicVar, x, lower, upper, alpha } = this;
-    const { colStart, rowIndex, value } = this.lp;
+    const { basicVar, x, lower, upper, alpha } = this;
     const tol = this.options.primalTolerance;
-    const col = this.rowWork.fill(0);
-    if (q >= n) col[q - n] = -1;
-    else for (let k = colStart[q]!; k < colStart[q + 1]!; k++) col[rowIndex[k]!] = value[k]!;
-    this.factor.ftran(col, alpha);
-    // α's nonzeros, listed once: every later pass over α (both ratio passes, the values' update and
-    // the eta column) walks the list instead of all m positions.
+    const alphaMax = this.enteringColumn(q);
     const nz = this.alphaNonzeros;
-    let count = 0;
-    let alphaMax = 0;
-    for (let p = 0; p < m; p++) {
-      const a = alpha[p]!;
-      if (a === 0) continue;
-      nz[count++] = p;
-      if (Math.abs(a) > alphaMax) alphaMax = Math.abs(a);
-    }
-    this.alphaCount = count;
+    const count = this.alphaCount;
     const pivotTol = PIVOT_TOLERANCE * Math.max(1, alphaMax);
     const range = upper[q]! - lower[q]!;
     let relaxed = range;
@@ -841,24 +989,43 @@ export class WarmPrimalSimplex {
   }
 
   /**
-   * Updates y and d for the pivot that brings q into position r (leaving variable `out`), before the
-   * factorization changes: ρ = B⁻ᵀ·e_r, δ = d_q / α_r, y += δ·ρ, d_j −= δ·(ρᵀa_j) for the columns
-   * that meet ρ's nonzeros (row-wise through `rowStart`), d_{n+i} = y_i for the row activities.
+   * FTRANs the column of variable q (a_q, or −e_i for row activity i) into `alpha` and lists its
+   * nonzeros once in `alphaNonzeros`: every later pass over α (the ratio test, the values' update and
+   * the eta column) walks the list instead of all m positions. Returns max |α|.
    */
-  private updateDuals(r: number, q: number, out: number): void {
-    const { n, status, y, d, alpha, rows, rowAlpha, touched, mark } = this;
+  private enteringColumn(q: number): number {
+    const { n, m, alpha } = this;
+    const { colStart, rowIndex, value } = this.lp;
+    const col = this.rowWork.fill(0);
+    if (q >= n) col[q - n] = -1;
+    else for (let k = colStart[q]!; k < colStart[q + 1]!; k++) col[rowIndex[k]!] = value[k]!;
+    this.factor.ftran(col, alpha);
+    const nz = this.alphaNonzeros;
+    let count = 0;
+    let alphaMax = 0;
+    for (let p = 0; p < m; p++) {
+      const a = alpha[p]!;
+      if (a === 0) continue;
+      nz[count++] = p;
+      if (Math.abs(a) > alphaMax) alphaMax = Math.abs(a);
+    }
+    this.alphaCount = count;
+    return alphaMax;
+  }
+
+  /**
+   * Row r of B⁻¹·[A −I], the pivot row, before the factorization changes: ρ = B⁻ᵀ·e_r into `rhoWork`,
+   * and ρᵀa_j into `rowAlpha` for the columns that meet ρ's nonzeros (listed in `touched`, row-wise
+   * through `rows`); for row activity i the entry is −ρ_i. Returns the count of touched columns.
+   */
+  private pivotRow(r: number): number {
+    const { rows, rowAlpha, touched, mark } = this;
     const rho = this.rhoWork;
     this.factor.btranUnit(r, rho);
-    const delta = d[q]! / alpha[r]!;
     let count = 0;
     for (let i = 0; i < this.m; i++) {
       const ri = rho[i]!;
       if (ri === 0) continue;
-      y[i]! += delta * ri;
-      if (status[n + i] !== BASIC) {
-        d[n + i] = y[i]!;
-        this.consider(n + i);
-      }
       for (let k = rows.start[i]!; k < rows.start[i + 1]!; k++) {
         const j = rows.col[k]!;
         if (mark[j] === 0) {
@@ -868,7 +1035,28 @@ export class WarmPrimalSimplex {
         rowAlpha[j]! += ri * rows.value[k]!;
       }
     }
-    for (let k = 0; k < count; k++) {
+    return count;
+  }
+
+  /**
+   * Updates y and d with the pivot row of the last {@link pivotRow} for the pivot that brings q in and
+   * takes `out` out of the basis, and clears the row: δ = d_q / α_rq, y += δ·ρ, d_j −= δ·α_rj, so
+   * d_q = 0 and d_out = −δ (Chvátal 1983, ch. 8).
+   */
+  private applyPivotRow(touchedCount: number, q: number, out: number, alphaRq: number): void {
+    const { n, status, y, d, rowAlpha, touched, mark } = this;
+    const rho = this.rhoWork;
+    const delta = d[q]! / alphaRq;
+    for (let i = 0; i < this.m; i++) {
+      const ri = rho[i]!;
+      if (ri === 0) continue;
+      y[i]! += delta * ri;
+      if (status[n + i] !== BASIC) {
+        d[n + i] = y[i]!;
+        this.consider(n + i);
+      }
+    }
+    for (let k = 0; k < touchedCount; k++) {
       const j = touched[k]!;
       if (status[j] !== BASIC) {
         d[j]! -= delta * rowAlpha[j]!;

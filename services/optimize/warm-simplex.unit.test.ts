@@ -1,5 +1,5 @@
 /**
- * The warm primal simplex against a reference library. Source: HiGHS (Huangfu & Hall 2018,
+ * The warm simplex against a reference library. Source: HiGHS (Huangfu & Hall 2018,
  * "Parallelizing the dual revised simplex method", Math. Prog. Comp. 10; the `highs` package on npm),
  * its optima reproduced in each test for the same problem solved from scratch. Every warm answer
  * must have HiGHS's optimal objective for the same costs, solved from scratch, and satisfy the LP
@@ -10,7 +10,7 @@
 import { beforeAll, describe, expect, test } from "vitest";
 import { createRandom } from "../kit/random.js";
 import { createHighsLp, type LpProblem, type LpResult, loadHighs, solveLpHighs } from "./lp.js";
-import { type ColumnLp, WarmPrimalSimplex } from "./warm-simplex.js";
+import { type ColumnLp, WarmSimplex } from "./warm-simplex.js";
 
 let highs: Awaited<ReturnType<typeof loadHighs>>;
 beforeAll(async () => {
@@ -98,7 +98,7 @@ function kktViolation(p: LpProblem, r: LpResult): number {
   return worst;
 }
 
-describe("warm primal simplex on a kept HiGHS model", () => {
+describe("warm simplex on a kept HiGHS model", () => {
   test.each([
     ["min", 1],
     ["max", 2],
@@ -128,7 +128,7 @@ describe("warm primal simplex on a kept HiGHS model", () => {
             1e-9 * Math.max(1, Math.abs(fresh.objective)),
           );
           expect(kktViolation(withCosts(p, costs), got)).toBeLessThan(1e-8);
-          if (got.warmPrimal) warm++;
+          if (got.warmSimplex) warm++;
           pivots += got.iterations ?? 0;
         }
         // the warm path answered (nearly) every cycle, with pivots to do and refactorizations on the way
@@ -140,42 +140,126 @@ describe("warm primal simplex on a kept HiGHS model", () => {
     },
   );
 
-  test("given warm answers, when a bound then changes, HiGHS solves with every cost change made meanwhile", () => {
-    // given three warm cycles
-    const p = randomLp(4, 60, 35, "min");
-    const lp = createHighsLp(highs, p);
-    const r = createRandom(7).uniform;
-    try {
-      lp.solve();
-      let costs = p.variables.map((v) => v.cost);
-      for (let cycle = 0; cycle < 3; cycle++) {
-        costs = costs.map((c) => c * (0.9 + 0.2 * r()));
-        lp.setCostVector(costs);
-        expect(lp.solve().warmPrimal).toBe(true);
+  test.each([
+    ["min", 21],
+    ["max", 22],
+  ] as const)(
+    "given a %s LP (seed %i) whose boxes move around the last answer every cycle (move limits) while costs and row limits drift, each answer is HiGHS's optimum and satisfies the optimality conditions",
+    (sense, seed) => {
+      // given
+      const p = randomLp(seed, 120, 70, sense);
+      const lp = createHighsLp(highs, p, { records: false });
+      const r = createRandom(200 + seed).uniform;
+      const lb = p.variables.map((v) => v.lb ?? 0);
+      const ub = p.variables.map((v) => v.ub ?? Infinity);
+      const rowLb = p.constraints.map((c) => c.lb ?? -Infinity);
+      const rowUb = p.constraints.map((c) => c.ub ?? Infinity);
+      try {
+        let last = lp.solve();
+        expect(last.status).toBe("optimal");
+        let warm = 0;
+        let pivots = 0;
+        for (let cycle = 0; cycle < 40; cycle++) {
+          // when: every boxed variable may move at most 0.5 from where it is (inside its own bounds),
+          // costs drift by up to ±5 %, and the ≤ rows' limits by up to ±0.2
+          const costs = p.variables.map((v) => v.cost * (1 + 0.1 * (r() - 0.5)));
+          const box = p.variables.map((v, j) => {
+            const x = last.columnValues[j]!;
+            if (!Number.isFinite(ub[j]!) || !Number.isFinite(lb[j]!)) return [lb[j]!, ub[j]!] as const;
+            return [Math.max(lb[j]!, x - 0.5), Math.min(ub[j]!, x + 0.5)] as const;
+          });
+          const limits = p.constraints.map((c, i) => {
+            const shift = Number.isFinite(rowLb[i]!) ? 0 : 0.4 * (r() - 0.5);
+            return [rowLb[i]!, rowUb[i]! + shift] as const;
+          });
+          lp.setCostVector(costs);
+          p.variables.forEach((v, j) => lp.setVariableBounds(v.name, box[j]![0], box[j]![1]));
+          p.constraints.forEach((c, i) => lp.setConstraintLimits(c.name, limits[i]![0], limits[i]![1]));
+          const got = lp.solve();
+          const changed: LpProblem = {
+            sense,
+            variables: p.variables.map((v, j) => ({ ...v, cost: costs[j]!, lb: box[j]![0], ub: box[j]![1] })),
+            constraints: p.constraints.map((c, i) => ({ ...c, lb: limits[i]![0], ub: limits[i]![1] })),
+          };
+          const fresh = solveLpHighs(highs, changed);
+          // then
+          expect(got.status).toBe(fresh.status);
+          if (fresh.status !== "optimal") continue;
+          expect(Math.abs(got.objective - fresh.objective)).toBeLessThan(
+            1e-9 * Math.max(1, Math.abs(fresh.objective)),
+          );
+          expect(kktViolation(changed, got)).toBeLessThan(1e-8);
+          if (got.warmSimplex) warm++;
+          pivots += got.iterations ?? 0;
+          last = got;
+          rowUb.splice(0, rowUb.length, ...limits.map((l) => l[1]));
+        }
+        // the warm simplex answered most cycles, with both phases at work
+        expect(warm).toBeGreaterThanOrEqual(35);
+        expect(pivots).toBeGreaterThan(40);
+      } finally {
+        lp.dispose();
       }
-      // when a variable's bounds change
-      const v = p.variables[5]!;
-      const ub = (v.lb ?? 0) + 0.5;
-      lp.setVariableBounds(v.name, v.lb ?? 0, ub);
+    },
+  );
+
+  test("given a box that leaves no feasible point, the warm simplex declines and HiGHS proves the LP infeasible", () => {
+    // given min −x − y over x, y ∈ [0, 10] with 12 ≤ x + y ≤ 15: optimum −15 (by hand)
+    const p: LpProblem = {
+      sense: "min",
+      variables: [
+        { name: "x", cost: -1, ub: 10 },
+        { name: "y", cost: -1, ub: 10 },
+      ],
+      constraints: [{ name: "sum", coeffs: { x: 1, y: 1 }, lb: 12, ub: 15 }],
+    };
+    const lp = createHighsLp(highs, p);
+    try {
+      expect(lp.solve().objective).toBeCloseTo(-15, 12);
+      // when the box shrinks to x, y ≤ 7: the sum may reach 14, and the optimum is −14 (by hand), warm
+      lp.setVariableBounds("x", 0, 7);
+      lp.setVariableBounds("y", 0, 7);
+      const tighter = lp.solve();
+      expect(tighter.warmSimplex).toBe(true);
+      expect(tighter.objective).toBeCloseTo(-14, 12);
+      // when it shrinks to x, y ≤ 5: the sum cannot reach 12
+      lp.setVariableBounds("x", 0, 5);
+      lp.setVariableBounds("y", 0, 5);
+      const none = lp.solve();
+      // then the warm simplex's dual ratio test found no entering variable, and HiGHS proved it
+      expect(none.status).toBe("infeasible");
+      expect(none.code).toBe("OPTIMIZE_INFEASIBLE");
+      expect(none.warmSimplex).toBeUndefined();
+    } finally {
+      lp.dispose();
+    }
+  });
+
+  test("given warm answers, when the bound a nonbasic variable sits at is removed, HiGHS answers with every change made meanwhile", () => {
+    // given max x + 2y over x ∈ [0, 4], y ∈ [0, 3] with x + y ≤ 5: optimum 8 at (2, 3) (by hand), y at
+    // its upper bound and nonbasic; then a warm cost change to max x + 3y (optimum 11 at (2, 3), by hand)
+    const p: LpProblem = {
+      sense: "max",
+      variables: [
+        { name: "x", cost: 1, ub: 4 },
+        { name: "y", cost: 2, ub: 3 },
+      ],
+      constraints: [{ name: "cap", coeffs: { x: 1, y: 1 }, ub: 5 }],
+    };
+    const lp = createHighsLp(highs, p);
+    try {
+      expect(lp.solve().objective).toBeCloseTo(8, 12);
+      lp.setCosts({ y: 3 });
+      const warm = lp.solve();
+      expect(warm.warmSimplex).toBe(true);
+      expect(warm.objective).toBeCloseTo(11, 12);
+      // when y's upper bound is removed: y rises to 5 and x falls to 0, 15 (by hand)
+      lp.setVariableBounds("y", 0, Number.POSITIVE_INFINITY);
       const got = lp.solve();
-      // then HiGHS answered, for the latest costs and the new bound
-      const changed = withCosts(p, costs);
-      const fresh = solveLpHighs(highs, {
-        ...changed,
-        variables: changed.variables.map((w, j) => (j === 5 ? { ...w, ub } : w)),
-      });
-      expect(got.warmPrimal).toBeUndefined();
-      expect(got.objective).toBeCloseTo(fresh.objective, 9);
-      // and the next cost change is warm again, from HiGHS's new basis
-      costs = costs.map((c) => c * (0.9 + 0.2 * r()));
-      lp.setCostVector(costs);
-      const next = lp.solve();
-      expect(next.warmPrimal).toBe(true);
-      const freshNext = solveLpHighs(highs, {
-        ...withCosts(p, costs),
-        variables: withCosts(p, costs).variables.map((w, j) => (j === 5 ? { ...w, ub } : w)),
-      });
-      expect(next.objective).toBeCloseTo(freshNext.objective, 9);
+      // then HiGHS answered, with the cost change the warm simplex had made
+      expect(got.warmSimplex).toBeUndefined();
+      expect(got.objective).toBeCloseTo(15, 12);
+      expect(got.values).toEqual({ x: 0, y: 5 });
     } finally {
       lp.dispose();
     }
@@ -197,7 +281,7 @@ describe("warm primal simplex on a kept HiGHS model", () => {
       // when x's cost turns negative: x rises to the row's limit, −4 at (4, 0) (by hand), warm
       lp.setCosts({ x: -1 });
       const bounded = lp.solve();
-      expect(bounded.warmPrimal).toBe(true);
+      expect(bounded.warmSimplex).toBe(true);
       expect(bounded.objective).toBeCloseTo(-4, 12);
       expect(bounded.duals.gap).toBeCloseTo(-1, 12);
       // when y's cost turns negative too: the ray (4, 0) + t·(1, 1) lowers −x − 0.5y without limit
@@ -206,7 +290,7 @@ describe("warm primal simplex on a kept HiGHS model", () => {
       // then the warm simplex declined and HiGHS, solving instead, proved it unbounded
       expect(ray.status).toBe("unbounded");
       expect(ray.code).toBe("OPTIMIZE_UNBOUNDED");
-      expect(ray.warmPrimal).toBeUndefined();
+      expect(ray.warmSimplex).toBeUndefined();
     } finally {
       lp.dispose();
     }
@@ -236,7 +320,7 @@ function columnFormWithBasis(p: LpProblem) {
     rowLower: Float64Array.from(p.constraints, (c) => c.lb ?? -Infinity),
     rowUpper: Float64Array.from(p.constraints, (c) => c.ub ?? Infinity),
   };
-  const model = createHighsLp(highs, p, { warmPrimal: false });
+  const model = createHighsLp(highs, p, { warmSimplex: false });
   const solved = model.solve();
   model.dispose();
   // HiGHS's basis, read back through a raw model (the kept wrapper does not expose it)
@@ -266,14 +350,14 @@ function columnFormWithBasis(p: LpProblem) {
   return { lp, basis, objective: solved.objective };
 }
 
-describe("WarmPrimalSimplex", () => {
+describe("WarmSimplex", () => {
   test("given a basis with long eta files (refactorization every 64 pivots), when costs alternate for 60 solves, then the updated duals stay equal to duals computed afresh", () => {
     // given: this is the case where a right-hand side entry cancels to exactly zero inside the
     // eta file and comes back later; the pivot-row solve once listed it twice and the duals drifted
     // by up to 1.6 (found by a bench run with long eta files)
     const p = randomLp(11, 300, 150, "min");
     const { lp, basis } = columnFormWithBasis(p);
-    const simplex = new WarmPrimalSimplex(lp, { refactorEvery: 64 });
+    const simplex = new WarmSimplex(lp, { refactorEvery: 64 });
     expect(simplex.load(basis.colStatus, basis.rowStatus)).toBeUndefined();
     const r = createRandom(12).uniform;
     const a = Float64Array.from(p.variables, (v) => v.cost * (0.9 + 0.2 * r()));
@@ -298,10 +382,67 @@ describe("WarmPrimalSimplex", () => {
     expect(pivots).toBeGreaterThan(64);
   });
 
+  test("given lowered upper bounds only, the dual phase alone re-optimizes: it keeps the basis dual feasible, so no primal pivot follows it", () => {
+    // given HiGHS's optimal basis of a seeded LP with nonnegative rows Σ a·x ≤ b and 0 ≤ x ≤ 10 (any
+    // x below a feasible one is feasible), its costs held
+    const r = createRandom(31).uniform;
+    const n = 200;
+    const x0 = Array.from({ length: n }, () => 10 * r());
+    const p: LpProblem = {
+      sense: "min",
+      variables: x0.map((_, j) => ({ name: `x${j}`, cost: 2 * r() - 1, ub: 10 })),
+      constraints: Array.from({ length: 100 }, (_, i) => {
+        const coeffs: Record<string, number> = {};
+        let ax = 0;
+        for (let k = 0; k < 6; k++) {
+          const j = Math.floor(r() * n);
+          coeffs[`x${j}`] = 0.5 + 2 * r();
+          ax += coeffs[`x${j}`]! * x0[j]!;
+        }
+        return { name: `r${i}`, coeffs, ub: ax + 5 * r() };
+      }),
+    };
+    const { lp, basis } = columnFormWithBasis(p);
+    const simplex = new WarmSimplex(lp);
+    expect(simplex.load(basis.colStatus, basis.rowStatus)).toBeUndefined();
+    const cost = Float64Array.from(p.variables, (v) => v.cost);
+    expect(simplex.solve(cost).status).toBe("optimal");
+    const colUpper = Float64Array.from(lp.colUpper);
+    let dualPivots = 0;
+    for (let cycle = 0; cycle < 30; cycle++) {
+      // when a third of the variables at their upper bound get it lowered by 0.1–1 (the LP stays feasible)
+      for (let j = 0; j < n; j++)
+        if (simplex.x[j]! >= colUpper[j]! - 1e-9 && colUpper[j]! > 1 && r() < 0.33)
+          colUpper[j]! -= 0.1 + 0.9 * r();
+      const outcome = simplex.solve(cost, {
+        colLower: lp.colLower,
+        colUpper,
+        rowLower: lp.rowLower,
+        rowUpper: lp.rowUpper,
+      });
+      // then only dual pivots, and HiGHS's optimum for the lowered bounds
+      expect(outcome.status).toBe("optimal");
+      if (outcome.status !== "optimal") break;
+      expect(outcome.phases.primal).toBe(0);
+      expect(outcome.phases.primalAfterDual).toBe(0);
+      dualPivots += outcome.phases.dual;
+      const fresh = solveLpHighs(highs, {
+        ...p,
+        variables: p.variables.map((v, j) => ({ ...v, ub: colUpper[j]! })),
+      });
+      let objective = 0;
+      for (let j = 0; j < n; j++) objective += cost[j]! * simplex.x[j]!;
+      expect(Math.abs(objective - fresh.objective)).toBeLessThan(
+        1e-9 * Math.max(1, Math.abs(fresh.objective)),
+      );
+    }
+    expect(dualPivots).toBeGreaterThan(30);
+  });
+
   test("declines, with its reason, a basis of the wrong size, and a solve over its pivot limit", () => {
     const p = randomLp(13, 40, 20, "min");
     const { lp, basis } = columnFormWithBasis(p);
-    const simplex = new WarmPrimalSimplex(lp, { maxPivots: 0 });
+    const simplex = new WarmSimplex(lp, { maxPivots: 0 });
     // a basis with one basic variable too few
     const rows = Int32Array.from(basis.rowStatus);
     const k = rows.indexOf(1);
