@@ -154,9 +154,12 @@ describe("LP and MILP", () => {
     }
   });
 
-  test("a kept model re-solved after bound and limit changes equals a fresh solve, sent in one batch", () => {
+  test.each([
+    ["HiGHS", false],
+    ["the warm simplex", true],
+  ])("a kept model re-solved by %s after bound and limit changes equals a fresh solve", (_, warmSimplex) => {
     // given the blend kept in HiGHS, then every bound re-stated unchanged and two really changed
-    const lp = createHighsLp(highs, blend);
+    const lp = createHighsLp(highs, blend, { warmSimplex });
     try {
       const cold = lp.solve();
       for (const v of blend.variables)
@@ -175,8 +178,10 @@ describe("LP and MILP", () => {
       const fresh = solveLpHighs(highs, changed);
       expect(same.objective).toBe(cold.objective);
       expect(same.iterations).toBe(0);
+      expect(warm.warmSimplex === true).toBe(warmSimplex);
       expect(warm.objective).toBeCloseTo(fresh.objective, 9);
       for (const [name, x] of Object.entries(fresh.values)) expect(warm.values[name]).toBeCloseTo(x, 9);
+      for (const [name, y] of Object.entries(fresh.duals)) expect(warm.duals[name]).toBeCloseTo(y, 9);
     } finally {
       lp.dispose();
     }

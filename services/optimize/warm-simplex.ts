@@ -624,7 +624,7 @@ export class WarmSimplex {
 
   /** Factorizes the current basis and recomputes the basic values; returns a reason on failure. */
   private refactor(): string | undefined {
-    const { n, m, lp, basicVar, x } = this;
+    const { n, m, lp, basicVar } = this;
     // The basis matrix's columns: a_j for a structural, −e_i for row activity i (explicit zeros dropped).
     const bStart = new Int32Array(m + 1);
     const bRow: number[] = [];

@@ -163,18 +163,19 @@ describe("warm simplex on a kept HiGHS model", () => {
           // when: every boxed variable may move at most 0.5 from where it is (inside its own bounds),
           // costs drift by up to ±5 %, and the ≤ rows' limits by up to ±0.2
           const costs = p.variables.map((v) => v.cost * (1 + 0.1 * (r() - 0.5)));
-          const box = p.variables.map((v, j) => {
+          const box = p.variables.map((_, j) => {
             const x = last.columnValues[j]!;
             if (!Number.isFinite(ub[j]!) || !Number.isFinite(lb[j]!)) return [lb[j]!, ub[j]!] as const;
             return [Math.max(lb[j]!, x - 0.5), Math.min(ub[j]!, x + 0.5)] as const;
           });
-          const limits = p.constraints.map((c, i) => {
+          const limits = p.constraints.map((_, i) => {
             const shift = Number.isFinite(rowLb[i]!) ? 0 : 0.4 * (r() - 0.5);
             return [rowLb[i]!, rowUb[i]! + shift] as const;
           });
           lp.setCostVector(costs);
-          p.variables.forEach((v, j) => lp.setVariableBounds(v.name, box[j]![0], box[j]![1]));
-          p.constraints.forEach((c, i) => lp.setConstraintLimits(c.name, limits[i]![0], limits[i]![1]));
+          for (const [j, v] of p.variables.entries()) lp.setVariableBounds(v.name, box[j]![0], box[j]![1]);
+          for (const [i, c] of p.constraints.entries())
+            lp.setConstraintLimits(c.name, limits[i]![0], limits[i]![1]);
           const got = lp.solve();
           const changed: LpProblem = {
             sense,
