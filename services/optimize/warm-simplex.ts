@@ -738,19 +738,13 @@ export class WarmSimplex {
       for (let k = 0; k < count; k++) consider(touched[k]!, rowAlpha[touched[k]!]!);
       for (let i = 0; i < m; i++) if (rho[i] !== 0) consider(this.n + i, -rho[i]!);
       if (q < 0) {
-        for (let k = 0; k < count; k++) {
-          rowAlpha[touched[k]!] = 0;
-          this.mark[touched[k]!] = 0;
-        }
+        this.clearPivotRow(count);
         return this.decline(pivots, "primal infeasible: no entering variable in the dual ratio test");
       }
       this.enteringColumn(q);
       const alphaRq = alpha[r]!;
       if (Math.abs(alphaRq) <= PIVOT_TOLERANCE) {
-        for (let k = 0; k < count; k++) {
-          rowAlpha[touched[k]!] = 0;
-          this.mark[touched[k]!] = 0;
-        }
+        this.clearPivotRow(count);
         return this.decline(pivots, "pivot too small in the dual phase");
       }
       // Primal step: x_out reaches the bound it violated.
@@ -1044,7 +1038,7 @@ export class WarmSimplex {
    * d_q = 0 and d_out = −δ (Chvátal 1983, ch. 8).
    */
   private applyPivotRow(touchedCount: number, q: number, out: number, alphaRq: number): void {
-    const { n, status, y, d, rowAlpha, touched, mark } = this;
+    const { n, status, y, d, rowAlpha, touched } = this;
     const rho = this.rhoWork;
     const delta = d[q]! / alphaRq;
     for (let i = 0; i < this.m; i++) {
@@ -1062,10 +1056,18 @@ export class WarmSimplex {
         d[j]! -= delta * rowAlpha[j]!;
         this.consider(j);
       }
-      rowAlpha[j] = 0;
-      mark[j] = 0;
     }
+    this.clearPivotRow(touchedCount);
     d[q] = 0;
     d[out] = -delta;
+  }
+
+  /** Zeroes the pivot row's accumulators (`rowAlpha`, `mark`) for its `touchedCount` columns. */
+  private clearPivotRow(touchedCount: number): void {
+    const { rowAlpha, touched, mark } = this;
+    for (let k = 0; k < touchedCount; k++) {
+      rowAlpha[touched[k]!] = 0;
+      mark[touched[k]!] = 0;
+    }
   }
 }
