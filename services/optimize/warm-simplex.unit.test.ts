@@ -222,6 +222,9 @@ describe("warm simplex on a kept HiGHS model", () => {
       lp.setVariableBounds("y", 0, 7);
       const tighter = lp.solve();
       expect(tighter.warmSimplex).toBe(true);
+      expect(tighter.message).toMatch(
+        /^optimal \(warm simplex from HiGHS's last basis: 0 primal, \d+ dual pivots\)$/,
+      );
       expect(tighter.objective).toBeCloseTo(-14, 12);
       // when it shrinks to x, y ≤ 5: the sum cannot reach 12
       lp.setVariableBounds("x", 0, 5);
