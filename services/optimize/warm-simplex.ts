@@ -94,7 +94,10 @@ const BASIC = 1;
 const UPPER = 2;
 const ZERO = 3;
 
-/** Smallest |α_p| accepted as a pivot, relative to the largest entry of α. */
+/**
+ * Smallest |α| accepted as a pivot: relative to the largest entry of the entering column in the primal
+ * ratio test, as it stands in the dual ratio test (pivot-row entries) and for the dual phase's pivot.
+ */
 const PIVOT_TOLERANCE = 1e-9;
 /** Smallest pivot of the bump's LU, relative to the largest entry of the bump. */
 const SINGULAR_TOLERANCE = 1e-11;
