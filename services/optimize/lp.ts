@@ -498,6 +498,10 @@ function createChecked(
   let highsOptimal = false;
   let warmCurrent = false;
   let refusals = 0;
+  // A bound or limit changed since the warm simplex (or HiGHS) last took them. Not `colChanged ||
+  // rowChanged`: those stay set until HiGHS's next run, and every warm cycle after one real change would
+  // re-apply the same bounds (a pass over all variables and an FTRAN) again.
+  let boundsMoved = false;
   const sign = p.sense === "max" ? -1 : 1;
   // The bounds and limits of HiGHS's last run (its basis is optimal for those), kept for a warm load.
   const highsBounds = {
@@ -528,10 +532,11 @@ function createChecked(
       refusals = 0;
     }
     for (let j = 0; j < nCols; j++) cost[j] = sign * costs[j]!;
-    // Bounds or limits changed since HiGHS's run: the warm simplex moves to them (its dual phase);
-    // they stay pending for HiGHS as well.
-    const outcome = simplex.solve(cost, colChanged || rowChanged ? current : undefined);
+    // Bounds or limits changed since it last took them: the warm simplex moves to them (its dual
+    // phase); they stay pending for HiGHS as well.
+    const outcome = simplex.solve(cost, boundsMoved ? current : undefined);
     warmCurrent = outcome.status === "optimal";
+    if (warmCurrent) boundsMoved = false;
     if (outcome.status !== "optimal") return undefined;
     const x = simplex.x.slice(0, nCols);
     const rowDuals = new Float64Array(nRows);
@@ -560,6 +565,7 @@ function createChecked(
         model.run();
         solved = true;
         warmCurrent = false;
+        boundsMoved = false;
         highsBounds.colLower.set(colLower);
         highsBounds.colUpper.set(colUpper);
         highsBounds.rowLower.set(rowLower);
@@ -628,6 +634,7 @@ function createChecked(
       colUpper[j] = hi;
       colMask[j] = 1;
       colChanged = true;
+      boundsMoved = true;
     },
     setConstraintLimits(name, lb, ub) {
       const i = row.get(name);
@@ -639,6 +646,7 @@ function createChecked(
       rowUpper[i] = hi;
       rowMask[i] = 1;
       rowChanged = true;
+      boundsMoved = true;
     },
     dispose() {
       model?.dispose();
